@@ -251,8 +251,13 @@ class Calculus:
 
         ``x``, ``x1``, ``x'`` belong to the names sort that declares ``x``; any
         other spelling belongs to the first names sort (a calculus with one
-        names sort takes every name).
+        names sort takes every name).  An internal fresh name ``#var:3``
+        names its sort.
         """
+        if text.startswith("#") and ":" in text:
+            ns = text[1 : text.index(":")]
+            if ns in self.names_sorts:
+                return ns
         base = base_meta(text)
         owner = self.metas.get(base)
         if owner in self.names_sorts:

@@ -240,7 +240,8 @@ _EXPECT_WORDS = {
     "IDENT": "a name", "STRING": 'a string "..."', "NUMBER": "a number",
     "SIGNED_INT": "a number", "LPAR": "'('", "RPAR": "')'", "LBRACE": "'{'",
     "RBRACE": "'}'", "LSQB": "'['", "RSQB": "']'", "COMMA": "','", "COLON": "':'",
-    "SEMICOLON": "';'", "DOT": "'.'", "VBAR": "'|'", "EQUAL": "'='", "REL": "a relation (-> ->* == joins ...)",
+    "SEMICOLON": "';'",
+    "DOT": "'.'", "VBAR": "'|'", "EQUAL": "'='", "REL": "a relation (-> ->* == joins ...)",
     "__ANON_0": "'::='", "__ANON_1": "'->'", "__ANON_2": "':='",
 }
 

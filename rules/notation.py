@@ -215,6 +215,11 @@ class _Reading:
             it.text for f in self.forms for it in f.items if it.kind == "lit"
         )
         self.cons = frozenset(calc.shapes) | frozenset(self.alt_of)
+        # Can a term be followed directly by an operand (as in `M N`)?
+        self.juxtaposes = any(
+            a.kind == "arg" and b.kind == "arg"
+            for f in self.forms for a, b in zip(f.items, f.items[1:], strict=False)
+        )
         # The punctuation of the abstract form is always a token.
         self.symbols = tuple(sorted(
             {t for t in self.literals if _is_symbol_run(t)} | {"."}, key=len, reverse=True
@@ -475,7 +480,13 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
         if m:
             word = m.group()
             after = m.end()
-            glued = after < n and text[after] == "("
+            # `c(`: a constructor applied.  With a space, `f (x)` is juxtaposition
+            # where the calculus has it, and a constructor applied where it has not.
+            nxt = after
+            if not reading.juxtaposes:
+                while nxt < n and text[nxt].isspace():
+                    nxt += 1
+            glued = nxt < n and text[nxt] == "("
             if glued and word in reading.cons:
                 tokens.append(token("CALLCON", word, pos))
             elif word in terminals:
@@ -621,8 +632,8 @@ class _TermParser:
             else:
                 at = nt("c", form.level)[2:]
                 rules[f"c_{at}"].append(expansion(k, form, "c"))
-                if form.items[-1].kind == "arg":
-                    rules[f"o_{at}"].append(expansion(k, form, "o"))
+                # a postfix term is closed, and open-allowed terms include closed ones
+                rules[f"o_{at}"].append(expansion(k, form, "o"))
         lines = [f"start: {top}", "args: arg (COMMA arg)*", f"arg: (NAME DOT)* {top}"]
         for lhs, alts in rules.items():
             lines.append(f"?{lhs}: " + "\n    | ".join(dict.fromkeys(alts)))

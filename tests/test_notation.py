@@ -325,6 +325,10 @@ def test_a_calculus_without_notations_reads_the_abstract_form_only():
         parse_term(plain, "x y")
     assert info.value.problems[0].pos.column == 3
     assert "end of the term" in info.value.problems[0].message
+    # no juxtaposition: a space before `(` still applies a constructor
+    assert parse_term(plain, "lam (x.app (x, x))") is parse_term(plain, "lam(x.app(x, x))")
+    with pytest.raises(TermError, match="unknown constructor f"):
+        parse_term(plain, "f (x)")
 
 
 def test_notation_tokens_split_as_the_language_says():

@@ -341,3 +341,61 @@ def test_notation_tokens_split_as_the_language_says():
 def test_printing_refuses_a_term_with_loose_indices():
     with pytest.raises(ValueError):
         print_term(ARITH, bound(0))
+
+
+# ---------------------------------------------------------------- every kind of notation
+
+OPS = load_file(DATA / "notation" / "ops.calc").calculi["ops"]
+
+
+@pytest.mark.parametrize(("written", "abstract"), [
+    ("x - - y", "sub(x, neg(y))"),          # `-` infix (50) and prefix (right 90)
+    ("- x - y", "sub(neg(x), y)"),
+    ("- x y", "neg(app(x, y))"),            # juxtaposition binds tighter than 90
+    ("x * y !", "fact(mul(x, y))"),         # postfix at 50, below `*` at 70
+    ("x ! !", "fact(fact(x))"),
+    ("- x !", "fact(neg(x))"),
+    ("x - y !", "fact(sub(x, y))"),         # both 50, left
+    ("fun x => x !", "lam(x.fact(x))"),     # open-ended: extends to the right
+    ("x ^ y ^ z", "pow(x, pow(y, z))"),     # right 75
+    ("x * y ^ z", "mul(x, pow(y, z))"),
+    ("[] []", "app(nil, nil)"),
+    ("< x , fun y => y >", "tuple(x, lam(y.y))"),
+    ("if x then fun y => y else z w", "ite(x, lam(y.y), app(z, w))"),
+    ("if x then y else z !", "ite(x, y, fact(z))"),
+    ("catch l. throw l x", "catch(l.throw(l, x))"),
+    ("throw l x y", "throw(l, app(x, y))"),
+    ("pack a b. a b", "pack(x.y.app(x, y))"),
+    ("wrap(x) !", "fact(wrap(x))"),
+    ("~ x - ~ y", "sub(neg(x), neg(y))"),   # a refinement's notation is read too
+])
+def test_every_kind_of_notation_parses(written, abstract):
+    assert parse_term(OPS, written) is parse_term(OPS, abstract)
+
+
+@pytest.mark.parametrize(("abstract", "shown"), [
+    ("app(x, neg(y))", "x (- y)"),
+    ("app(neg(x), y)", "(- x) y"),
+    ("neg(app(x, y))", "- x y"),
+    ("app(fact(x), y)", "(x !) y"),
+    ("fact(throw(l, x))", "throw l x !"),
+    ("throw(l, fact(x))", "throw l (x !)"),
+    ("app(ite(x, y, z), w)", "(if x then y else z) w"),
+    ("pow(x, lam(y.y))", "x ^ (fun y => y)"),
+    ("catch(m.l)", "catch m. l"),           # the bound label avoids the free one
+    ("pack(x.y.app(y, x))", "pack x y. y x"),
+    ("neg(neg(x))", "- - x"),               # the first notation declared for neg
+    ("wrap(fact(x))", "wrap(x !)"),
+])
+def test_every_kind_of_notation_prints(abstract, shown):
+    term = parse_term(OPS, abstract)
+    printed = print_term(OPS, term)
+    assert printed == shown
+    assert parse_term(OPS, printed) is term
+    assert droppable_parentheses(OPS, printed) == []
+
+
+def test_the_parser_is_built_once_per_calculus():
+    from rules import notation
+
+    assert notation._parser(OPS) is notation._parser(OPS)

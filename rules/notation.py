@@ -19,6 +19,21 @@ tighter.
 - An operand enclosed between two literals (the ``M`` of ``let x = M in N``)
   is a whole term.
 
+Choices where the language is silent:
+
+- ``c(`` with no space applies a constructor; ``f (x)`` with a space is
+  juxtaposition where the calculus has one (``tt (x)`` is ``app(tt, x)``), and
+  a constructor applied where it has none.  An identifier glued to ``(`` that
+  is not a constructor is an error.
+- A notation with a precedence that begins with a literal and ends with a
+  placeholder (``"- M" right 90``) is an ordinary prefix operator at that level;
+  only one without a precedence is open-ended.
+- The printer parenthesises an open-ended notation standing as the last operand
+  of an operator (``x (\\y. y)``, ``x + (\\y. y)``), which the language allows,
+  but not as the body of another open-ended one (``\\x. \\y. x``).
+- Bound names skip the calculus's literals and constructor names, which the
+  parser would not read back as names.
+
 The parser is an Earley parser generated with lark from the calculus, one per
 calculus (cached); its grammar has, for every level, a nonterminal for terms
 that may end with an open-ended notation and one for terms that may not, which

@@ -44,8 +44,8 @@ import networkx as nx
 from .errors import FileError
 from .instantiate import build
 from .match import _binder_sorts, check_conditions, decompositions, match
-from .spec import Calculus, PCon, Rule
-from .terms import Node, Term, close, fresh_name, is_internal, name, node, open_body
+from .spec import Calculus, PAbs, Pattern, PCon, PName, Rule
+from .terms import Bound, Name, Node, Term, close, fresh_name, is_internal, name, node, open_body
 
 Graph = nx.DiGraph
 
@@ -98,11 +98,36 @@ class _Reducer:
             if s is None or not s.is_context:
                 raise ValueError(f"reduce in {self.context}: not a context sort of {calc.name}")
         self._memo: weakref.WeakKeyDictionary[Term, tuple] = weakref.WeakKeyDictionary()
+        self._may: weakref.WeakKeyDictionary[Term, bool] = weakref.WeakKeyDictionary()
+
+    # ------------------------------------------------------------ pre-filter
+
+    def may_reduce(self, term: Term) -> bool:
+        """False when no subterm of ``term`` has the constructor skeleton of a
+        left-hand side: then it has no reduct, whatever the sorts and binders.
+
+        It reads raw bodies (loose indices standing for names), so a normal
+        subterm under a binder is skipped without opening it.  A left-hand
+        side with a context at its root could match anywhere: it disables the
+        filter.
+        """
+        if self.any_head:
+            return True
+        if not isinstance(term, Node):
+            return False
+        got = self._may.get(term)
+        if got is None:
+            got = any(_skeleton(r.lhs, term) for r in self.by_head.get(term.con, ())) or any(
+                self.may_reduce(a) for a in term.args
+            )
+            self._may[term] = got
+        return got
 
     # ------------------------------------------------------------ memo
 
-    def _get(self, term: Term) -> tuple[Step, ...] | None:
-        got = self._memo.get(term)
+    def _get(self, term: Term, env: tuple[str, ...]) -> tuple[Step, ...] | None:
+        per_term = self._memo.get(term)
+        got = per_term.get(env) if per_term is not None else None
         if got is None:
             return None
         out = []
@@ -113,29 +138,38 @@ class _Reducer:
             out.append(Step(rule, pos, r))
         return tuple(out)
 
-    def _put(self, term: Term, steps: tuple[Step, ...]) -> None:
-        self._memo[term] = tuple((s.rule, s.position, weakref.ref(s.result)) for s in steps)
+    def _put(self, term: Term, env: tuple[str, ...], steps: tuple[Step, ...]) -> None:
+        per_term = self._memo.get(term)
+        if per_term is None:
+            per_term = self._memo[term] = {}
+        per_term[env] = tuple((s.rule, s.position, weakref.ref(s.result)) for s in steps)
 
     # ------------------------------------------------------------ steps
 
     def reducts(self, term: Term) -> tuple[Step, ...]:
-        got = self._get(term)
-        if got is not None:
-            return got
+        if term.loose:
+            raise ValueError("reducts of a term with loose bound indices")
         if self.context is None:
-            steps = self._anywhere(term)
-        else:
-            steps = self._in_context(term)
-        self._put(term, steps)
-        return steps
+            return self._raw(term, ())
+        if not self.may_reduce(term):
+            return ()
+        got = self._get(term, ())
+        if got is None:
+            got = self._in_context(term)
+            self._put(term, (), got)
+        return got
 
-    def at_root(self, term: Term) -> list[tuple[str, Term]]:
+    def candidates(self, term: Term) -> list[Rule]:
+        """The rules whose left-hand side could match at the root of ``term``."""
+        rules = [r for r in self.by_head.get(term.con, ()) if _skeleton(r.lhs, term)] if (
+            isinstance(term, Node)
+        ) else []
+        return rules + self.any_head if self.any_head else rules
+
+    def at_root(self, term: Term, rules: Sequence[Rule] | None = None) -> list[tuple[str, Term]]:
         """Every ``(rule, result)`` of a rule applied at the root of ``term``."""
-        rules = self.any_head
-        if isinstance(term, Node):
-            head = self.by_head.get(term.con)
-            if head:
-                rules = head + rules if rules else head
+        if rules is None:
+            rules = self.candidates(term)
         out: list[tuple[str, Term]] = []
         for rule in rules:
             for b in match(self.calc, rule.lhs, term):
@@ -157,25 +191,50 @@ class _Reducer:
                 "substitution for it, or add a condition `x fresh in ...`",
             )
 
-    def _anywhere(self, term: Term) -> tuple[Step, ...]:
-        out = [Step(r, (), t) for r, t in self.at_root(term)]
+    def _raw(self, term: Term, env: tuple[str, ...]) -> tuple[Step, ...]:
+        """The steps of a subterm that may have loose indices (``env[i]``: the
+        names sort of index ``i``), with results in the same raw form.
+
+        Descending does not open binders: only a subterm where a rule may
+        apply is opened (its loose indices replaced by fresh names), rewritten
+        and closed again, so a step costs the size of its redex, not of the
+        whole body around it.  The steps depend only on the sorts of the
+        loose indices, which is the memo key beside the subterm.
+        """
+        if not self.may_reduce(term):
+            return ()
+        env = env[: term.loose]
+        got = self._get(term, env)
+        if got is not None:
+            return got
+        out: list[Step] = []
+        rules = self.candidates(term)
+        if rules:
+            if term.loose:
+                taken = set(term.free)
+                names: list[str] = []
+                for j in range(term.loose - 1, -1, -1):  # outermost first
+                    n = fresh_name(taken, base=f"{env[j]}:")
+                    taken.add(n)
+                    names.append(n)
+                opened = open_body(term, [name(n) for n in names])
+                out.extend(Step(r, (), close(t, names)) for r, t in self.at_root(opened, rules))
+            else:
+                out.extend(Step(r, (), t) for r, t in self.at_root(term, rules))
         if isinstance(term, Node):
             for i, arg in enumerate(term.args):
-                k = term.binders[i]
-                names: list[str] = []
-                if k:
-                    taken = set(term.free)
-                    for ns in _binder_sorts(self.calc, term.con, i, k):
-                        n = fresh_name(taken, base=f"{ns}:")
-                        taken.add(n)
-                        names.append(n)
-                    # Names not free in the body: closing over them undoes the opening.
-                    arg = open_body(arg, [name(n) for n in names])
-                for s in self.reducts(arg):
-                    new = close(s.result, names) if names else s.result
-                    args = term.args[:i] + (new,) + term.args[i + 1 :]
+                if not self.may_reduce(arg):
+                    continue
+                inner = env
+                if term.binders[i]:
+                    bsorts = _binder_sorts(self.calc, term.con, i, term.binders[i])
+                    inner = tuple(reversed(bsorts)) + env
+                for s in self._raw(arg, inner):
+                    args = term.args[:i] + (s.result,) + term.args[i + 1 :]
                     out.append(Step(s.rule, (i, *s.position), node(term.con, args, term.binders)))
-        return tuple(out)
+        steps = tuple(out)
+        self._put(term, env, steps)
+        return steps
 
     def _in_context(self, term: Term) -> tuple[Step, ...]:
         out: list[Step] = []
@@ -185,6 +244,21 @@ class _Reducer:
                 if step not in out:
                     out.append(step)
         return tuple(out)
+
+
+def _skeleton(p: Pattern, t: Term) -> bool:
+    """``t`` has the constructors of pattern ``p`` (metavariables and contexts
+    match anything, a names metavariable any name)."""
+    if isinstance(p, PCon):
+        if not isinstance(t, Node) or t.con != p.con or len(t.args) != len(p.args):
+            return False
+        return all(
+            _skeleton(a.body if isinstance(a, PAbs) else a, b)
+            for a, b in zip(p.args, t.args, strict=True)
+        )
+    if isinstance(p, PName):
+        return isinstance(t, Name | Bound)
+    return True
 
 
 _reducers: dict[tuple[int, str | None], _Reducer] = {}

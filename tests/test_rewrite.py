@@ -116,6 +116,20 @@ def test_plotkin_evaluation_is_deterministic():
     assert several  # the check is not vacuous: the calculus itself has choices
 
 
+def test_reduce_anywhere_is_reduce_in_the_context_of_every_position():
+    """Two independent routes to the compatible closure: descending through raw
+    bodies, and decomposing through a context whose hole may sit under binders."""
+    anywhere = calc("lam.calc", "lam")
+    everywhere = calc("contexts.calc", "lam_everywhere")
+    differ = 0
+    for t in enumerate_terms(anywhere, "term", 8, 2):
+        a = {(s.rule, s.position, s.result) for s in reducts(anywhere, t)}
+        b = {(s.rule, s.position, s.result) for s in reducts(everywhere, t)}
+        assert a == b, t
+        differ += len(a) > 1
+    assert differ
+
+
 def test_context_with_hole_under_a_binder_reduces_there():
     c = calc("contexts.calc", "head")
     [(_, where, result)] = steps_of(c, r"\x. (\y. y) x")

@@ -205,7 +205,8 @@ def _context_alts(calc: Calculus, sort: str) -> _ContextAlts:
     return out
 
 
-def _binder_sorts(calc: Calculus, con: str, i: int, k: int) -> tuple[str, ...]:
+def binder_sorts(calc: Calculus, con: str, i: int, k: int) -> tuple[str, ...]:
+    """The names sorts bound by argument ``i`` of ``con`` (outermost first)."""
     shape = calc.shapes.get(con)
     if shape is not None and i < shape.arity and len(shape.binder_sorts[i]) == k:
         return shape.binder_sorts[i]
@@ -256,7 +257,7 @@ def _decompose(calc, g, sort, term, taken, frames):
         if k:
             names = []
             inner = set(taken)
-            for ns in _binder_sorts(calc, con, hole, k):
+            for ns in binder_sorts(calc, con, hole, k):
                 n = fresh_name(inner, base=f"{ns}:")
                 inner.add(n)
                 names.append(n)
@@ -363,7 +364,7 @@ class _Matcher:
             return
         if len(a.names) != k:
             return
-        sorts = _binder_sorts(self.calc, t.con, i, k)
+        sorts = binder_sorts(self.calc, t.con, i, k)
         names: list[Name] = []
         copied = False
         for n, ns in zip(a.names, sorts, strict=True):

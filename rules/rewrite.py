@@ -2,8 +2,8 @@
 
 :func:`reducts` gives every one-step reduct of a term, with the rule and the
 position (argument indices from the root), for ``reduce anywhere`` (the
-compatible closure: under binders too, which are opened with fresh names on
-the way down and closed on the way up) and ``reduce in E`` (only at the hole
+compatible closure, under binders too: a redex under binders is opened with
+fresh names for them, rewritten and closed again) and ``reduce in E`` (only at the hole
 of a decomposition of the term through context sort ``E``).
 
 :func:`reduction_graph` explores breadth first, up to ``steps`` steps from
@@ -43,7 +43,7 @@ import networkx as nx
 
 from .errors import FileError
 from .instantiate import build
-from .match import _binder_sorts, check_conditions, decompositions, match
+from .match import binder_sorts, check_conditions, decompositions, match
 from .spec import Calculus, PAbs, Pattern, PCon, PName, Rule
 from .terms import Bound, Name, Node, Term, close, fresh_name, is_internal, name, node, open_body
 
@@ -227,7 +227,7 @@ class _Reducer:
                     continue
                 inner = env
                 if term.binders[i]:
-                    bsorts = _binder_sorts(self.calc, term.con, i, term.binders[i])
+                    bsorts = binder_sorts(self.calc, term.con, i, term.binders[i])
                     inner = tuple(reversed(bsorts)) + env
                 for s in self._raw(arg, inner):
                     args = term.args[:i] + (s.result,) + term.args[i + 1 :]

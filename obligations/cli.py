@@ -172,6 +172,209 @@ def translate(file: str, function: str, term: str, args: tuple[str, ...], steps:
         click.echo(pretty)
 
 
+# ---------------------------------------------------------------- check
+
+
+class _ProgressLine:
+    """A one-line progress display on standard error, only on a terminal, only after 1 s."""
+
+    def __init__(self) -> None:
+        import time
+
+        self.clock = time.monotonic
+        self.start = self.clock()
+        self.last = 0.0
+        self.enabled = sys.stderr.isatty()
+        self.shown = False
+
+    def __call__(self, name: str, done: int, total: int) -> None:
+        now = self.clock()
+        if not self.enabled or now - self.start < 1.0 or now - self.last < 0.1:
+            return
+        self.last = now
+        pct = f"{100 * done // total:3d}%" if total else "    "
+        sys.stderr.write(f"\r  checking {name}: {done}/{total} values {pct}\x1b[K")
+        sys.stderr.flush()
+        self.shown = True
+
+    def clear(self) -> None:
+        if self.shown:
+            sys.stderr.write("\r\x1b[K")
+            sys.stderr.flush()
+
+
+def _shard_option(ctx, param, value):
+    if value is None:
+        return None
+    try:
+        i, n = (int(x) for x in value.split("/"))
+    except ValueError:
+        raise click.BadParameter(f"{value!r}: write I/N, for example 2/8") from None
+    if n < 1 or not 1 <= i <= n:
+        raise click.BadParameter(f"{value}: I counts from 1 to N")
+    return (i, n)
+
+
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("claims", nargs=-1)
+@size_option
+@steps_option
+@names_option
+@nodes_option
+@click.option("--engine", type=click.Choice(["enum", "smt", "auto"]), default="enum",
+              show_default=True, help="Which engine decides the claims.")
+@click.option("--timeout", type=float, default=None, help="Seconds per solver query (smt).")
+@click.option("--json", "json_path", metavar="PATH|-", default=None,
+              help="Write the JSON report to PATH (- for standard output).")
+@click.option("--junit", "junit_path", metavar="PATH", default=None,
+              help="Write a JUnit XML report (one test case per claim).")
+@click.option("--jobs", type=int, default=1, callback=_positive("jobs", 1),
+              help="Split the enumeration over this many processes (same results).")
+@click.option("--shard", callback=_shard_option, default=None, metavar="I/N",
+              help="Check only the I-th of N deterministic parts (combine with `merge`).")
+@click.option("--all", "collect_all", is_flag=True,
+              help="Keep going after the first counterexample (up to 10 per claim).")
+@click.option("--quiet", is_flag=True, help="List only the claims that do not hold.")
+def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
+          timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
+          shard, collect_all: bool, quiet: bool) -> None:
+    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
+    from .report import dumps, json_report, junit_report, text_report, use_colour, write_atomically
+    from .runner import RunOptions, run_claims
+    from .verdict import exit_code
+
+    spec = load(file)
+    chosen = list(spec.claims)
+    if claims:
+        by_name = {c.name: c for c in spec.claims}
+        missing = [c for c in claims if c not in by_name]
+        if missing:
+            raise UsageError(f"no claim {missing[0]} in {spec.file}",
+                             hint="claims: " + (", ".join(by_name) or "none"))
+        chosen = [by_name[c] for c in claims]
+    progress = _ProgressLine()
+    opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes), jobs, shard,
+                      collect_all, engine, timeout, progress)
+    try:
+        verdicts, partials = run_claims(spec, chosen, opts)
+    finally:
+        progress.clear()
+    extra = {"shard": list(shard), "records": partials} if shard else None
+    report = json_report(spec.file, verdicts, extra)
+    if json_path is not None:
+        write_atomically(json_path, dumps(report))
+    if junit_path is not None:
+        write_atomically(junit_path, junit_report(spec.file, verdicts))
+    if json_path != "-":
+        out = click.get_text_stream("stdout")
+        out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
+    sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
+
+
+# ---------------------------------------------------------------- reduce
+
+
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("calc_name", metavar="CALC")
+@click.argument("term")
+@steps_option
+@nodes_option
+@click.option("--dot", "dot_path", metavar="PATH", default=None,
+              help="Write the reduction graph in the DOT language.")
+@click.option("--json", "json_out", metavar="-", default=None,
+              help="Print the graph's summary as JSON (give -).")
+def reduce(file: str, calc_name: str, term: str, steps, nodes, dot_path, json_out) -> None:
+    """Explore the reduction graph of TERM in calculus CALC within the bounds."""
+    from rules.notation import parse_term, print_abstract, print_term
+    from rules.rewrite import find_cycle, normal_forms, reduction_graph
+    from rules.sorts import grammar
+
+    from .dot import graph_to_dot
+    from .report import dumps, write_atomically
+
+    spec = load(file)
+    calc = calculus(spec, calc_name)
+    t = parse_term(calc, term, "<TERM>")
+    if not grammar(calc).state(t):
+        sorts = ", ".join(n for n, s in calc.sorts.items() if not s.is_context)
+        raise UsageError(f"{print_abstract(calc, t)} is not a term of calculus {calc.name} "
+                         f"(it belongs to none of its sorts: {sorts})")
+    b = spec.effective_bounds(Bounds(steps=steps, nodes=nodes))
+    g = reduction_graph(calc, t, b.steps, b.nodes)
+    nfs = normal_forms(g)
+    cycle = find_cycle(g)
+    info = {"term": print_abstract(calc, t), "nodes": g.number_of_nodes(),
+            "edges": g.number_of_edges(), "complete": bool(g.graph["complete"]),
+            "cut_by": g.graph["cut_by"], "normal_forms": [print_abstract(calc, n) for n in nfs],
+            "cycles": cycle is not None}
+    if dot_path:
+        write_atomically(dot_path, graph_to_dot(calc, g))
+    if json_out is not None:
+        write_atomically(json_out, dumps(info))
+        return
+    state = "complete" if info["complete"] else f"cut by the bound on {info['cut_by']}"
+    click.echo(f"{print_term(calc, t)}: {info['nodes']} term(s), {info['edges']} step(s), {state}")
+    if nfs:
+        click.echo(f"normal form{'s' if len(nfs) != 1 else ''}:")
+        for n in nfs:
+            click.echo(f"  {print_term(calc, n)}")
+    else:
+        click.echo("no normal form" + ("" if info["complete"] else " found within the bounds"))
+    if cycle is not None:
+        click.echo("reduction cycle: " + " -> ".join(print_term(calc, c) for c in cycle)
+                   + f" -> {print_term(calc, cycle[0])}")
+
+
+# ---------------------------------------------------------------- merge and explain
+
+
+@cli.command()
+@click.argument("reports", nargs=-1, required=True, type=click.Path(exists=True, dir_okay=False))
+@click.option("-o", "output", required=True, metavar="REPORT", help="Where to write the merged report.")
+def merge(reports: tuple[str, ...], output: str) -> None:
+    """Combine the JSON reports of `check --shard I/N` runs into the report of one whole run."""
+    from .merge import merge_reports
+    from .report import dumps, write_atomically
+
+    merged = merge_reports(list(reports))
+    write_atomically(output, dumps(merged))
+    verdicts = [c["verdict"] for c in merged["claims"] if "part_of" not in c]
+    from .verdict import exit_code
+
+    click.echo(f"merged {len(reports)} report(s) into {output}: "
+               + ", ".join(f"{c['name']} {c['verdict']}" for c in merged["claims"]
+                           if "part_of" not in c))
+    sys.exit(exit_code(verdicts))
+
+
+@cli.command()
+@click.argument("report", required=False, type=click.Path(dir_okay=False))
+@click.argument("claim", required=False)
+@click.option("--dot", "dot_path", metavar="PATH", default=None,
+              help="Write the counterexample's reduction graph in DOT.")
+@click.option("--model", "model_path", metavar="SOLVER_OUTPUT", default=None,
+              help="Read a solver's model for an exported SMT2_FILE (given as REPORT).")
+def explain(report: str | None, claim: str | None, dot_path: str | None,
+            model_path: str | None) -> None:
+    """Print one claim's evidence again from a saved JSON REPORT.
+
+    With --model SOLVER_OUTPUT, REPORT is an .smt2 file written by `export` and
+    the model is turned back into the counterexample's terms.
+    """
+    from .explain import explain_claim, explain_model
+
+    if model_path is not None:
+        if report is None:
+            raise UsageError("explain --model SOLVER_OUTPUT needs the SMT2_FILE it answers")
+        click.echo(explain_model(model_path, report))
+        return
+    if report is None or claim is None:
+        raise UsageError("explain REPORT CLAIM: give the saved JSON report and a claim name")
+    click.echo(explain_claim(report, claim, dot_path))
+
+
 # ---------------------------------------------------------------- entry point
 
 

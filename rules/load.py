@@ -425,8 +425,6 @@ class CalculusBuilder:
         if not tokens:
             self.error("an empty notation", raw.pos)
             return None
-        if all(t in own for t in tokens) and len(tokens) > 1 and len(args) != 2:
-            pass
         assoc = raw.assoc
         if assoc is not None and assoc not in ("left", "right", "nonassoc"):
             self.error(f"unknown associativity {assoc!r}", raw.assoc_pos,
@@ -434,9 +432,6 @@ class CalculusBuilder:
             return None
         if raw.prec is not None and not 0 <= raw.prec <= 100:
             self.error(f"precedence {raw.prec} is outside 0-100", raw.assoc_pos)
-            return None
-        if assoc is not None and raw.prec is None:
-            self.error(f"{assoc} needs a precedence (0-100) after it", raw.assoc_pos)
             return None
         return Notation(raw.text, tokens, tuple(placeholders), assoc, raw.prec, raw.pos)
 

@@ -395,8 +395,10 @@ class _Builder:
         if t is None:
             return None
         s, assoc, prec = t.children
+        where = assoc or prec
         return RawNotation(_unquote(str(s)), self.pos(s), str(assoc) if assoc else None,
-                           self.pos(assoc) if assoc else None, int(prec) if prec else None)
+                           self.pos(where) if where else None,
+                           int(prec) if prec is not None else None)
 
     def rule(self, t: Tree) -> RawRule:
         _, name, groups, lhs, rhs, *rest = t.children

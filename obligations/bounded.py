@@ -1,0 +1,335 @@
+"""The enumeration engine: every case of an obligation up to the bounds,
+smallest first (LANGUAGE.md §8).
+
+The quantified metavariables are enumerated jointly by increasing total size
+(rules.enumerate.enumerate_tuples), so the first failing case is a smallest
+one.  A case that fails is re-checked along an independent path (the printed
+terms parsed back, translations recomputed with empty memo tables,
+reachability by the rewriting module's own graph builder) before it is
+reported; a re-check that disagrees is an internal error, never a verdict.
+
+Work is split for ``--jobs`` and ``--shard`` by the enumeration's own
+deterministic sharding; a :class:`Partial` records what one shard saw
+(failures and undecided cases by their global index), and :func:`combine`
+gives exactly the verdict of an unsharded run.
+"""
+
+from __future__ import annotations
+
+import time
+from collections import Counter
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from rules.enumerate import count_tuples, enumerate_tuples
+from rules.notation import parse_term, print_abstract
+from rules.rewrite import reaches, reduction_graph
+from rules.spec import Atom, Bounds, Confluent, Implies, Spec, Terminating
+from rules.terms import Term
+
+from .claims import Obligation
+from .evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome
+from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+
+ALL_LIMIT = 10
+
+
+class InternalError(Exception):
+    """A re-check disagreed with the engine: a bug in calcscout."""
+
+
+@dataclass
+class Failure:
+    index: int  # global position of the quantified tuple in the enumeration
+    counterexample: Counterexample
+
+
+@dataclass
+class Partial:
+    """What one shard of an obligation's enumeration found."""
+
+    name: str
+    tried: int = 0
+    cases: int = 0
+    failures: list[Failure] = field(default_factory=list)
+    undecided: list[tuple[int, str]] = field(default_factory=list)  # (index, bound)
+    premise_cut: int = 0
+    seconds: float = 0.0
+    total: int = 0
+    normalize: dict[str, dict[str, Any]] = field(default_factory=dict)
+    collect_all: bool = False
+
+    def to_json(self) -> dict[str, Any]:
+        return {"tried": self.tried, "cases": self.cases,
+                "failures": [{"index": f.index, "counterexample": f.counterexample.to_json()}
+                             for f in self.failures],
+                "undecided": [list(u) for u in self.undecided], "premise_cut": self.premise_cut,
+                "seconds": self.seconds, "total": self.total, "normalize": self.normalize,
+                "collect_all": self.collect_all}
+
+    @classmethod
+    def from_json(cls, name: str, d: dict[str, Any]) -> Partial:
+        return cls(name, d["tried"], d["cases"],
+                   [Failure(f["index"], Counterexample.from_json(f["counterexample"]))
+                    for f in d["failures"]],
+                   [(u[0], u[1]) for u in d["undecided"]], d["premise_cut"], d["seconds"],
+                   d.get("total", 0), d.get("normalize", {}), d.get("collect_all", False))
+
+
+Progress = Callable[[int], None]
+
+
+def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int] | None = None,
+              collect_all: bool = False, progress: Progress | None = None) -> Partial:
+    """Enumerate this shard's cases of a relational obligation (Atom or Implies)."""
+    start = time.perf_counter()
+    f = ob.formula
+    assert isinstance(f, Atom | Implies)
+    ev = Evaluator(spec, bounds)
+    slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
+    assert bounds.size is not None and bounds.names is not None
+    part = Partial(ob.name, collect_all=collect_all)
+    part.total = count_tuples(slots, bounds.size, bounds.names)
+    i0, n = (shard[0] - 1, shard[1]) if shard else (0, 1)
+    stream = enumerate_tuples(slots, bounds.size, bounds.names, shard=shard)
+    for k, values in enumerate(stream):
+        index = i0 + k * n
+        env = {m.name: v for m, v in zip(ob.quantified, values, strict=True)}
+        part.tried += 1
+        if progress is not None and part.tried % 64 == 0:
+            progress(part.tried)
+        outcome, case_env, step, seen = _decide_tuple(ev, f, env, part)
+        if outcome.status == UNDECIDED:
+            part.undecided.append((index, outcome.cut_by or "steps"))
+        elif outcome.status == FAIL:
+            ce = build_counterexample(spec, ob, ev, case_env, seen, outcome, step)
+            recheck(spec, ob, bounds, case_env, ce)
+            part.failures.append(Failure(index, ce))
+            if not collect_all or len(part.failures) >= ALL_LIMIT:
+                break
+    for trn, undefined in ev.undefined.items():
+        part.normalize[trn] = _normalize_summary(spec, trn, ev, undefined)
+    for trn, met in ev.normalized_met.items():
+        part.normalize.setdefault(trn, _normalize_summary(spec, trn, ev, []))["met"] = met
+    part.seconds = time.perf_counter() - start
+    return part
+
+
+def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
+    """The outcome of the cases of one quantified tuple (several, for a premise)."""
+    if isinstance(f, Atom):
+        part.cases += 1
+        seen: dict = {}
+        return ev.decide(f, env, seen), env, None, seen
+    undecided: tuple | None = None
+    m = env[f.premise.left.name]
+    nname = f.premise.right.name  # type: ignore[union-attr]
+    for value, rule, pos in ev.generated(f.premise, m):
+        part.cases += 1
+        case = dict(env)
+        case[nname] = value
+        seen = {}
+        o = ev.decide(f.conclusion, case, seen)
+        if o.status == FAIL:
+            return o, case, (rule, pos), seen
+        if o.status == UNDECIDED and undecided is None:
+            undecided = (o, case, (rule, pos), seen)
+    if ev.premise_cut:
+        part.premise_cut += 1
+    if undecided is not None:
+        return undecided
+    return Outcome(OK), env, None, {}
+
+
+def _normalize_summary(spec: Spec, trn: str, ev: Evaluator, undefined) -> dict[str, Any]:
+    calc = spec.calculi[spec.translations[trn].target]
+    several = [u for u in undefined if u.reason == "several-normal-forms"]
+    cut = [u for u in undefined if u.reason != "several-normal-forms"]
+    out: dict[str, Any] = {"met": ev.normalized_met.get(trn, 0), "several": len(several),
+                           "cut": len(cut), "cut_by": cut[0].cut_by if cut else None}
+    if several:
+        u = min(several, key=lambda x: x.built.size)
+        out["example"] = {"term": print_abstract(calc, u.built),
+                          "normal_forms": [print_abstract(calc, t) for t in u.normal_forms[:4]]}
+    return out
+
+
+# ---------------------------------------------------------------- counterexamples
+
+
+def build_counterexample(spec: Spec, ob: Obligation, ev: Evaluator, env: dict[str, Term],
+                         seen: dict, outcome: Outcome, step) -> Counterexample:
+    terms: dict[str, Any] = {}
+    size = 0
+    for m in ob.quantified:
+        terms[m.name] = print_abstract(spec.calculi[m.calculus], env[m.name])
+        size += env[m.name].size
+    f = ob.formula
+    details = dict(outcome.details)
+    evidence = outcome.evidence
+    if isinstance(f, Implies):
+        nname = f.premise.right.name  # type: ignore[union-attr]
+        calc = spec.calculi[f.premise.left.calculus]
+        terms[nname] = print_abstract(calc, env[nname])
+        rule, pos = step
+        rel = f.premise.relation
+        assert rel is not None
+        if rule:
+            where = ".".join(str(i) for i in pos) if pos else "root"
+            details["premise_step"] = {"rule": rule, "position": where}
+            evidence = (f"{f.premise.left.name} {rel.kind} {nname} (first step by rule {rule} at "
+                        f"position {where}); " + evidence)
+    for key, value in seen.items():
+        if key in terms:
+            continue
+        calc_name = _calc_of_call(spec, ob, key)
+        terms[key] = print_abstract(spec.calculi[calc_name], value) if calc_name else str(value)
+    return Counterexample(size, terms, evidence, details)
+
+
+def _calc_of_call(spec: Spec, ob: Obligation, text: str) -> str | None:
+    fn = text.split("(", 1)[0]
+    options = spec.functions_named(fn)
+    return options[0][0].target if options else None
+
+
+def recheck(spec: Spec, ob: Obligation, bounds: Bounds, env: dict[str, Term],
+            ce: Counterexample) -> None:
+    """Decide the failing case again along an independent path; raise InternalError if it
+    does not fail there too."""
+    fresh_env: dict[str, Term] = {}
+    f = ob.formula
+    names = [m.name for m in ob.quantified]
+    calcs = {m.name: m.calculus for m in ob.quantified}
+    if isinstance(f, Implies):
+        names.append(f.premise.right.name)  # type: ignore[union-attr]
+        calcs[f.premise.right.name] = f.premise.left.calculus  # type: ignore[union-attr]
+    for n in names:
+        calc = spec.calculi[calcs[n]]
+        t = parse_term(calc, ce.terms[n], "<counterexample>")
+        if t is not env[n]:
+            raise InternalError(f"counterexample {n} = {ce.terms[n]} does not read back as the "
+                                "term that failed")
+        fresh_env[n] = t
+    ev = Evaluator(spec, bounds)
+    if isinstance(f, Implies):
+        m = fresh_env[f.premise.left.name]
+        n = fresh_env[f.premise.right.name]  # type: ignore[union-attr]
+        rel = f.premise.relation
+        assert rel is not None
+        calc = spec.calculi[rel.calculus or f.premise.left.calculus]
+        assert bounds.steps is not None and bounds.nodes is not None
+        if rel.kind in ("->", "->=", "->+") or m is not n:
+            g = reduction_graph(calc, m, bounds.steps, bounds.nodes, rel.group)
+            path = reaches(g, n)
+            ok = path is not None and (rel.kind in ("->*", "->+") or len(path) == 2 or
+                                       (rel.kind == "->=" and len(path) <= 2))
+            if rel.kind == "->=" and m is n:
+                ok = True
+            if not ok:
+                raise InternalError("re-check: the premise's N is not generated by M")
+        atom = f.conclusion
+    else:
+        atom = f
+    if isinstance(atom, Atom) and atom.relation is not None and atom.relation.kind in ("->*", "->+"):
+        # independent reachability: the full graph, not the early-exit search
+        left = ev.value(atom.left, fresh_env, {})
+        right = ev.value(atom.right, fresh_env, {})  # type: ignore[arg-type]
+        calc = spec.calculi[atom.relation.calculus or atom.left.calculus]
+        assert bounds.steps is not None and bounds.nodes is not None
+        g = reduction_graph(calc, left, bounds.steps, bounds.nodes, atom.relation.group)
+        if not g.graph["complete"]:
+            raise InternalError("re-check: the graph of a definite failure is not complete")
+        if atom.relation.kind == "->+" and left is right:
+            fails = not any(g.has_edge(x, left) for x in g)  # no cycle back to the start
+        else:
+            fails = reaches(g, right) is None
+        if not fails:
+            raise InternalError("re-check: the target is reachable after all")
+        return
+    outcome = ev.decide(atom, fresh_env, {})
+    if outcome.status != FAIL:
+        raise InternalError(f"re-check of counterexample for {ob.name} gave {outcome.status}")
+
+
+# ---------------------------------------------------------------- combining
+
+
+def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial],
+            engine: str = "enum") -> Verdict:
+    """The verdict of the whole enumeration from its shards' partials."""
+    failures = sorted((f for p in parts for f in p.failures), key=lambda f: f.index)
+    undecided = sorted(u for p in parts for u in p.undecided)
+    seconds = max((p.seconds for p in parts), default=0.0)
+    v = Verdict(name, file, text, HOLDS, bounds, engine=engine, seconds=seconds)
+    premise_cut = sum(p.premise_cut for p in parts)
+    if failures:
+        first = failures[0]
+        v.verdict = REFUTED
+        v.counterexample = first.counterexample
+        v.tried = first.index + 1
+        collected = failures[:ALL_LIMIT]
+        if _collect_all(parts) and len(collected) > 1:
+            v.more = [f.counterexample for f in collected]
+            v.tried = sum(p.tried for p in parts)
+            before = undecided
+        else:
+            before = [u for u in undecided if u[0] < first.index]
+        v.undecided = len(before)
+        v.cut_by = _main_bound(before)
+    else:
+        v.tried = sum(p.tried for p in parts)
+        v.undecided = len(undecided)
+        if undecided:
+            v.verdict = INCONCLUSIVE
+            v.cut_by = _main_bound(undecided)
+            v.reason = (f"{len(undecided)} of {v.tried} case(s) were cut by the bound on "
+                        f"{v.cut_by} before they could be settled")
+    if premise_cut:
+        v.notes.append(f"the premise's reduction graph was cut for {premise_cut} value(s); the "
+                       "claim was checked only for the N it generated")
+    return v
+
+
+def _collect_all(parts: list[Partial]) -> bool:
+    return any(p.collect_all for p in parts)
+
+
+def _main_bound(undecided: list[tuple[int, str]]) -> str | None:
+    if not undecided:
+        return None
+    counts = Counter(b for _, b in undecided)
+    return counts.most_common(1)[0][0]
+
+
+def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bounds: Bounds,
+                      parts: list[Partial], engine: str = "enum") -> Verdict:
+    """The ``normalize(T)`` part: the group ended with one normal form on every term it met."""
+    met = sum(p.normalize.get(trn, {}).get("met", 0) for p in parts)
+    several = sum(p.normalize.get(trn, {}).get("several", 0) for p in parts)
+    cut = sum(p.normalize.get(trn, {}).get("cut", 0) for p in parts)
+    v = Verdict(name, file, text, HOLDS, bounds, tried=met, engine=engine)
+    if several:
+        v.verdict = REFUTED
+        ex = next(p.normalize[trn]["example"] for p in parts
+                  if p.normalize.get(trn, {}).get("example"))
+        v.counterexample = Counterexample(
+            0, {"term": ex["term"], "normal_forms": ex["normal_forms"]},
+            f"group {group} reaches several normal forms from "
+            f"{ex['term']}: {', '.join(ex['normal_forms'])}")
+    elif cut:
+        v.verdict = INCONCLUSIVE
+        v.undecided = cut
+        v.cut_by = next(p.normalize[trn]["cut_by"] for p in parts
+                        if p.normalize.get(trn, {}).get("cut"))
+        v.reason = f"{cut} term(s) had no normal form within the bound on {v.cut_by}"
+    return v
+
+
+def is_relational(ob: Obligation) -> bool:
+    return isinstance(ob.formula, Atom | Implies)
+
+
+def is_rewriting(ob: Obligation) -> bool:
+    return isinstance(ob.formula, Confluent | Terminating) and ob.normalizes is None

@@ -1,0 +1,178 @@
+"""Running the claims of a spec: plans, engines, jobs and shards, verdicts in order.
+
+For each claim the report has the claim's own entry, then its parts (the
+parts of a shorthand, the ``normalize(T)`` part of every normalised
+translation it uses).  A shorthand's own verdict is the worst of its parts.
+
+Each obligation first becomes a *record* (a plain dict: what the engine saw,
+by shard); :func:`finish_claim` turns a claim's records into verdicts.  A
+``--shard`` run saves the records in its JSON report, and ``merge`` calls the
+same :func:`finish_claim` on the records of all shards, so a merged report has
+the verdicts of an unsharded run.
+"""
+
+from __future__ import annotations
+
+import multiprocessing
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from rules.enumerate import count_tuples
+from rules.spec import Bounds, Claim, Spec
+
+from . import bounded
+from .claims import Obligation, plan
+from .verdict import HOLDS, INCONCLUSIVE, Verdict, worst
+
+
+@dataclass
+class RunOptions:
+    bounds: Bounds = field(default_factory=Bounds)  # from the command line
+    jobs: int = 1
+    shard: tuple[int, int] | None = None
+    collect_all: bool = False
+    engine: str = "enum"
+    timeout: float | None = None
+    progress: Callable[[str, int, int], None] | None = None  # (claim, done, total)
+
+
+def claim_bounds(spec: Spec, claim: Claim, opts: RunOptions) -> Bounds:
+    return spec.effective_bounds(opts.bounds, claim.within)
+
+
+def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions
+               ) -> tuple[list[Verdict], dict[str, Any]]:
+    """Verdicts for every claim and part, in report order, and every claim's records."""
+    out: list[Verdict] = []
+    records: dict[str, Any] = {}
+    for claim in claims:
+        rec = claim_records(spec, claim, opts)
+        records[claim.name] = rec
+        out.extend(finish_claim(rec))
+    return out, records
+
+
+def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
+    b = claim_bounds(spec, claim, opts)
+    p = plan(spec, claim)
+    obs: list[dict[str, Any]] = []
+    own = ([p.head] if p.head else []) + list(p.parts)
+    for ob in own:
+        base = {"name": ob.name, "file": claim.file, "formula": ob.text,
+                "head": ob is p.head}
+        start = time.perf_counter()
+        if ob.normalizes is not None:
+            tr = spec.translations[ob.normalizes]
+            obs.append({**base, "kind": "normalize", "translation": tr.name,
+                        "group": tr.normalize})
+        elif bounded.is_relational(ob):
+            parts = _run_relational(spec, ob, b, opts)
+            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts]})
+        else:
+            v = _run_rewriting(spec, ob, b, opts)
+            v.seconds = time.perf_counter() - start
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
+    return {"claim": claim.name, "file": claim.file, "formula": claim.text,
+            "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
+            "shard": list(opts.shard) if opts.shard else None}
+
+
+def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
+                 ) -> list[Verdict]:
+    """The verdicts of one claim from its records; ``extra_parts`` adds other shards'
+    partials (by obligation name), as ``merge`` does."""
+    b = Bounds(**rec["bounds"])
+    head_v: Verdict | None = None
+    parts_v: list[Verdict] = []
+    relational: list[bounded.Partial] = []
+    for o in rec["obligations"]:
+        if o["kind"] != "relational":
+            continue
+        raw = list(o["parts"]) + list((extra_parts or {}).get(o["name"], []))
+        relational.extend(bounded.Partial.from_json(o["name"], x) for x in raw)
+    for o in rec["obligations"]:
+        if o["kind"] == "relational":
+            parts = [x for x in relational if x.name == o["name"]]
+            v = bounded.combine(o["name"], o["file"], o["formula"], b, parts)
+        elif o["kind"] == "normalize":
+            v = bounded.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
+                                          o["group"], b, relational)
+        else:
+            v = Verdict.from_json(o["verdict"])
+        if o["head"]:
+            head_v = v
+        else:
+            v.part_of = rec["claim"]
+            parts_v.append(v)
+    if head_v is None:
+        head_v = Verdict(rec["claim"], rec["file"], rec["formula"],
+                         worst([v.verdict for v in parts_v]), b,
+                         seconds=sum(v.seconds for v in parts_v))
+        head_v.tried = sum(v.tried for v in parts_v)
+        head_v.undecided = sum(v.undecided for v in parts_v)
+        bad = [v for v in parts_v if v.verdict == head_v.verdict and v.verdict != HOLDS]
+        if bad:
+            head_v.reason = f"part {bad[0].name} is {bad[0].verdict}"
+            head_v.cut_by = bad[0].cut_by
+        if parts_v and all(v.scope == "all" for v in parts_v):
+            head_v.scope = "all"
+            head_v.reason = "every part is proved for all terms"
+    return [head_v, *parts_v]
+
+
+def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions
+                    ) -> list[bounded.Partial]:
+    progress = None
+    if opts.progress is not None:
+        slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
+        assert b.size is not None and b.names is not None
+        total = count_tuples(slots, b.size, b.names)
+        if opts.shard is not None:
+            total = -(-total // opts.shard[1])
+        if opts.jobs > 1:
+            total = -(-total // opts.jobs)
+
+        def progress(done: int, _name=ob.name, _total=total) -> None:
+            opts.progress(_name, done, _total)  # type: ignore[misc]
+
+    if opts.jobs <= 1:
+        return [bounded.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
+    shards = _subshards(opts.shard, opts.jobs)
+    ctx = multiprocessing.get_context("fork")
+    global _WORK
+    _WORK = (spec, ob, b, opts.collect_all)
+    try:
+        with ctx.Pool(opts.jobs) as pool:
+            return pool.map(_work, shards)
+    finally:
+        _WORK = None
+
+
+_WORK: tuple | None = None
+
+
+def _work(shard: tuple[int, int]) -> bounded.Partial:
+    assert _WORK is not None
+    spec, ob, b, collect_all = _WORK
+    return bounded.run_shard(spec, ob, b, shard, collect_all)
+
+
+def _subshards(shard: tuple[int, int] | None, jobs: int) -> list[tuple[int, int]]:
+    """Shard i/n split among ``jobs`` processes: shards of the same stream with stride n*jobs."""
+    i, n = shard if shard else (1, 1)
+    return [(i + j * n, n * jobs) for j in range(jobs)]
+
+
+def _run_rewriting(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions) -> Verdict:
+    from rules.spec import Confluent
+
+    try:
+        from . import confluence
+    except ImportError:  # the rewriting decisions are a module of their own
+        return Verdict(ob.name, ob.claim.file, ob.text, INCONCLUSIVE, b,
+                       reason="confluent and terminating are not decided in this build")
+    decide = (confluence.decide_confluent if isinstance(ob.formula, Confluent)
+              else confluence.decide_terminating)
+    return decide(spec, ob, b)

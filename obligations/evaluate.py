@@ -19,7 +19,7 @@ from rules.notation import print_abstract
 from rules.rewrite import join, reducts
 from rules.sorts import grammar
 from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
-from rules.terms import Node, Term
+from rules.terms import Node, Term, name, open_body
 from rules.translate import Translator, Undefined
 
 OK = "ok"
@@ -96,16 +96,35 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
     return Reach(False, [], len(parent), complete, cut_by, normal)
 
 
-def first_difference(a: Term, b: Term) -> tuple[tuple[int, ...], Term, Term]:
-    """The outermost position where two terms differ, and the subterms there."""
+def first_difference(calc: Calculus, a: Term, b: Term) -> tuple[tuple[int, ...], Term, Term]:
+    """The smallest differing subterms of two terms and their position.
+
+    Descends while the two terms agree but for one argument; a binder on the
+    way is opened with the same new name on both sides, so the subterms print.
+    """
     pos: list[int] = []
     while True:
         if (isinstance(a, Node) and isinstance(b, Node) and a.con == b.con
                 and a.binders == b.binders and len(a.args) == len(b.args)):
             diff = [i for i, (x, y) in enumerate(zip(a.args, b.args, strict=True)) if x is not y]
             if len(diff) == 1:
-                pos.append(diff[0])
-                a, b = a.args[diff[0]], b.args[diff[0]]
+                i = diff[0]
+                pos.append(i)
+                x, y = a.args[i], b.args[i]
+                k = a.binders[i]
+                if k:
+                    sorts = calc.shapes[a.con].binder_sorts[i]
+                    taken = set(a.free) | set(b.free)
+                    names = []
+                    for ns in sorts:
+                        decl = calc.names_sorts[ns]
+                        j = 0
+                        while decl.canonical_name(j) in taken:
+                            j += 1
+                        taken.add(decl.canonical_name(j))
+                        names.append(name(decl.canonical_name(j)))
+                    x, y = open_body(x, names), open_body(y, names)
+                a, b = x, y
                 continue
         return tuple(pos), a, b
 
@@ -204,7 +223,7 @@ class Evaluator:
             if left is right:
                 return Outcome(OK)
             calc = self.calc(atom.left.calculus)
-            pos, a, c = first_difference(left, right)
+            pos, a, c = first_difference(calc, left, right)
             return Outcome(FAIL, evidence=(
                 f"{lt} and {rt} differ at position {position_text(pos)}: "
                 f"{print_abstract(calc, a)} versus {print_abstract(calc, c)}"),
@@ -260,6 +279,9 @@ class Evaluator:
         """The diagnosis for a failed reduction claim: do the two sides still join?"""
         b = self.bounds
         assert b.steps is not None and b.nodes is not None
+        if left is right:
+            return {"diagnosis": "the two sides are the same term, and ->+ needs at least one "
+                                 "step (no reduction cycle leads back to it)", "joins": True}
         j = join(calc, left, right, b.steps, b.nodes, rel.group)
         if j.status == "joinable":
             assert j.common is not None

@@ -46,7 +46,10 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
         indent = "    " if v.part_of else "  "
         label = _paint(f"{v.verdict:<12}", COLOURS.get(v.verdict, "0"), colour)
         lines.append(f"{indent}{label} {v.name:<{width}}  {_summary(v)}")
-    details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")]
+    # a shorthand's own entry has no evidence of its own: its parts carry it
+    details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")
+               and (v.counterexample is not None or v.part_of is not None or not _has_parts(
+                   v, verdicts))]
     for v in details:
         lines.append("")
         lines.extend(evidence_lines(v, colour))
@@ -60,6 +63,10 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
     return "\n".join(lines) + "\n"
 
 
+def _has_parts(v: Verdict, verdicts: Sequence[Verdict]) -> bool:
+    return any(p.part_of == v.name for p in verdicts)
+
+
 def _bounds_text(v: Verdict) -> str:
     b = v.bounds
     return f"size {b.size}, names {b.names}, steps {b.steps}, nodes {b.nodes}"
@@ -71,6 +78,8 @@ def _summary(v: Verdict) -> str:
         return f"proved for all terms ({v.reason})  {secs}"
     if v.verdict == HOLDS:
         return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}"
+    if v.verdict == REFUTED and v.counterexample is None:
+        return f"{v.reason or 'a part is refuted'}  {secs}"
     if v.verdict == REFUTED:
         ce = v.counterexample
         size = f"counterexample of size {ce.size}" if ce and ce.size else "counterexample"

@@ -455,4 +455,9 @@ def describe_shape(shape: Shape) -> str:
 
 
 def describe_given(shape: Shape) -> str:
-    return describe_shape(shape)
+    """``one``, ``two`` ...: the shape given, in the words of the declared one."""
+    words = ["none", "one", "two", "three", "four", "five", "six"]
+    n = shape.arity
+    text = words[n] if n < len(words) else str(n)
+    binds = [f"argument {i + 1} binds {k}" for i, k in enumerate(shape.binders) if k]
+    return text + (" (" + ", ".join(binds) + ")" if binds else "")

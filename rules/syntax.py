@@ -184,7 +184,7 @@ class RawFile:
 @cache
 def _parser() -> Lark:
     grammar = (Path(__file__).with_name("grammar.lark")).read_text(encoding="utf-8")
-    return Lark(grammar, parser="lalr", lexer="contextual", propagate_positions=True,
+    return Lark(grammar, parser="lalr", lexer="basic", propagate_positions=True,
                 maybe_placeholders=True)
 
 
@@ -241,8 +241,10 @@ _EXPECT_WORDS = {
     "SIGNED_INT": "a number", "LPAR": "'('", "RPAR": "')'", "LBRACE": "'{'",
     "RBRACE": "'}'", "LSQB": "'['", "RSQB": "']'", "COMMA": "','", "COLON": "':'",
     "SEMICOLON": "';'",
-    "DOT": "'.'", "VBAR": "'|'", "EQUAL": "'='", "REL": "a relation (-> ->* == joins ...)",
-    "__ANON_0": "'::='", "__ANON_1": "'->'", "__ANON_2": "':='",
+    "DOT": "'.'", "VBAR": "'|'", "EQUAL": "'='", "ARROW": "'->'",
+    "ARROW_STAR": "'->*'", "ARROW_PLUS": "'->+'",
+    "ARROW_EQ": "'->='", "EQEQ": "'=='",
+    "DEFINES": "'::='", "ASSIGN": "':='",
 }
 
 
@@ -281,20 +283,20 @@ def _syntax_problem(e: UnexpectedInput, text: str, file: str) -> Problem:
     expected = sorted({_describe(t) for t in e.expected if not t.startswith("__")} |
                       {_describe(t) for t in e.expected if t in _EXPECT_WORDS})
     shown = str(tok)
-    hint = _hint_for(tok, e.expected)
     end = column + len(shown)
+    if tok.type.startswith("KW_") and "IDENT" in e.expected:
+        return Problem(f"{shown!r} is a keyword; it cannot be a name here",
+                       Pos(file, line, column, end), hint="choose another name")
     return Problem(f"unexpected {shown!r}; expected {_join(expected)}",
-                   Pos(file, line, column, end), hint=hint)
+                   Pos(file, line, column, end), hint=_hint_for(tok, e.expected))
 
 
 def _hint_for(tok: Token, expected: set[str]) -> str | None:
-    if tok.type.startswith("KW_") and "IDENT" in expected:
-        return f"'{tok}' is a keyword; choose another name"
-    if tok.type == "RBRACE" and "__ANON_1" in expected:
+    if tok.type == "RBRACE" and "ARROW" in expected:
         return "a rule needs '->' and a right-hand side"
     if tok.type == "IDENT" and tok.value in ("rule", "sort", "claim"):
         return None
-    if "__ANON_0" in expected:
+    if "DEFINES" in expected:
         return "a sort declaration reads: sort NAME METAVARS ::= alternative | ..."
     return None
 

@@ -27,6 +27,7 @@ from rules.notation import parse_term, print_abstract
 from rules.rewrite import reaches, reduction_graph
 from rules.spec import Atom, Bounds, Confluent, Implies, Spec, Terminating
 from rules.terms import Term
+from rules.translate import Undefined
 
 from .claims import Obligation
 from .evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome
@@ -57,8 +58,12 @@ class Partial:
     premise_cut: int = 0
     seconds: float = 0.0
     total: int = 0
-    normalize: dict[str, dict[str, Any]] = field(default_factory=dict)
+    # translation -> [[case index, 0 fine | 1 cut | 2 several normal forms], ...]
+    normalize: dict[str, list[list[int]]] = field(default_factory=dict)
+    # translation -> the smallest-index case where the group had several normal forms
+    several: dict[str, dict[str, Any]] = field(default_factory=dict)
     collect_all: bool = False
+    example: Failure | None = None  # the first undecided case, to show the user
 
     def to_json(self) -> dict[str, Any]:
         return {"tried": self.tried, "cases": self.cases,
@@ -66,7 +71,11 @@ class Partial:
                              for f in self.failures],
                 "undecided": [list(u) for u in self.undecided], "premise_cut": self.premise_cut,
                 "seconds": self.seconds, "total": self.total, "normalize": self.normalize,
-                "collect_all": self.collect_all}
+                "several": self.several,
+                "collect_all": self.collect_all,
+                "example": ({"index": self.example.index,
+                             "counterexample": self.example.counterexample.to_json()}
+                            if self.example else None)}
 
     @classmethod
     def from_json(cls, name: str, d: dict[str, Any]) -> Partial:
@@ -74,7 +83,11 @@ class Partial:
                    [Failure(f["index"], Counterexample.from_json(f["counterexample"]))
                     for f in d["failures"]],
                    [(u[0], u[1]) for u in d["undecided"]], d["premise_cut"], d["seconds"],
-                   d.get("total", 0), d.get("normalize", {}), d.get("collect_all", False))
+                   d.get("total", 0), d.get("normalize", {}), d.get("several", {}),
+                   d.get("collect_all", False),
+                   Failure(d["example"]["index"],
+                           Counterexample.from_json(d["example"]["counterexample"]))
+                   if d.get("example") else None)
 
 
 Progress = Callable[[int], None]
@@ -99,19 +112,23 @@ def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int]
         part.tried += 1
         if progress is not None and part.tried % 64 == 0:
             progress(part.tried)
+        ev.case_norm = {}
         outcome, case_env, step, seen = _decide_tuple(ev, f, env, part)
+        for trn, (code, undefined) in ev.case_norm.items():
+            part.normalize.setdefault(trn, []).append([index, code])
+            if code == 2 and trn not in part.several:
+                part.several[trn] = _several_example(spec, trn, index, undefined)
         if outcome.status == UNDECIDED:
             part.undecided.append((index, outcome.cut_by or "steps"))
+            if part.example is None:
+                part.example = Failure(index, build_counterexample(spec, ob, ev, case_env, seen,
+                                                                   outcome, step))
         elif outcome.status == FAIL:
             ce = build_counterexample(spec, ob, ev, case_env, seen, outcome, step)
             recheck(spec, ob, bounds, case_env, ce)
             part.failures.append(Failure(index, ce))
             if not collect_all or len(part.failures) >= ALL_LIMIT:
                 break
-    for trn, undefined in ev.undefined.items():
-        part.normalize[trn] = _normalize_summary(spec, trn, ev, undefined)
-    for trn, met in ev.normalized_met.items():
-        part.normalize.setdefault(trn, _normalize_summary(spec, trn, ev, []))["met"] = met
     part.seconds = time.perf_counter() - start
     return part
 
@@ -142,17 +159,12 @@ def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
     return Outcome(OK), env, None, {}
 
 
-def _normalize_summary(spec: Spec, trn: str, ev: Evaluator, undefined) -> dict[str, Any]:
+def _several_example(spec: Spec, trn: str, index: int, u: Undefined | None) -> dict[str, Any]:
     calc = spec.calculi[spec.translations[trn].target]
-    several = [u for u in undefined if u.reason == "several-normal-forms"]
-    cut = [u for u in undefined if u.reason != "several-normal-forms"]
-    out: dict[str, Any] = {"met": ev.normalized_met.get(trn, 0), "several": len(several),
-                           "cut": len(cut), "cut_by": cut[0].cut_by if cut else None}
-    if several:
-        u = min(several, key=lambda x: x.built.size)
-        out["example"] = {"term": print_abstract(calc, u.built),
-                          "normal_forms": [print_abstract(calc, t) for t in u.normal_forms[:4]]}
-    return out
+    assert u is not None
+    return {"index": index, "term": print_abstract(calc, u.built),
+            "normal_forms": [print_abstract(calc, t) for t in u.normal_forms[:4]],
+            "size": u.built.size, "cycles": u.cut_by == "cycle"}
 
 
 # ---------------------------------------------------------------- counterexamples
@@ -184,7 +196,14 @@ def build_counterexample(spec: Spec, ob: Obligation, ev: Evaluator, env: dict[st
         if key in terms:
             continue
         calc_name = _calc_of_call(spec, ob, key)
-        terms[key] = print_abstract(spec.calculi[calc_name], value) if calc_name else str(value)
+        calc = spec.calculi[calc_name] if calc_name else None
+        if isinstance(value, Undefined):
+            why = ("several normal forms" if value.reason == "several-normal-forms"
+                   else f"no normal form within the bound on {value.cut_by}")
+            built = print_abstract(calc, value.built) if calc else "?"
+            terms[key] = f"undefined: {built} has {why}"
+        else:
+            terms[key] = print_abstract(calc, value) if calc else str(value)
     return Counterexample(size, terms, evidence, details)
 
 
@@ -284,8 +303,15 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
         if undecided:
             v.verdict = INCONCLUSIVE
             v.cut_by = _main_bound(undecided)
-            v.reason = (f"{len(undecided)} of {v.tried} case(s) were cut by the bound on "
-                        f"{v.cut_by} before they could be settled")
+            if v.cut_by == "normalize":
+                v.reason = (f"{len(undecided)} of {v.tried} case(s) need a normalised "
+                            "translation where it is undefined (see its normalize part)")
+            else:
+                v.reason = (f"{len(undecided)} of {v.tried} case(s) were cut by the bound on "
+                            f"{v.cut_by} before they could be settled")
+            examples = [p.example for p in parts if p.example is not None]
+            if examples:
+                v.undecided_example = min(examples, key=lambda f: f.index).counterexample
     if premise_cut:
         v.notes.append(f"the premise's reduction graph was cut for {premise_cut} value(s); the "
                        "claim was checked only for the N it generated")
@@ -304,27 +330,57 @@ def _main_bound(undecided: list[tuple[int, str]]) -> str | None:
 
 
 def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bounds: Bounds,
-                      parts: list[Partial], engine: str = "enum") -> Verdict:
-    """The ``normalize(T)`` part: the group ended with one normal form on every term it met."""
-    met = sum(p.normalize.get(trn, {}).get("met", 0) for p in parts)
-    several = sum(p.normalize.get(trn, {}).get("several", 0) for p in parts)
-    cut = sum(p.normalize.get(trn, {}).get("cut", 0) for p in parts)
+                      parts: list[Partial], cutoffs: dict[str, int | None],
+                      engine: str = "enum") -> Verdict:
+    """The ``normalize(T)`` part: the group ended with one normal form on every term it met.
+
+    Only the cases each obligation's own verdict rests on count (up to its first
+    counterexample, ``cutoffs``), so that every split of the work gives the same part.
+    """
+    met = several = 0
+    cuts: Counter[str] = Counter()
+    example = None
+    for p in parts:
+        limit = cutoffs.get(p.name)
+        for index, code in p.normalize.get(trn, []):
+            if limit is not None and index > limit:
+                continue
+            met += 1
+            if code in (1, 3):
+                cuts["steps" if code == 1 else "nodes"] += 1
+            elif code == 2:
+                several += 1
+        ex = p.several.get(trn)
+        if ex is not None and (limit is None or ex["index"] <= limit):
+            if example is None or (ex["index"], ex["size"]) < (example["index"], example["size"]):
+                example = ex
     v = Verdict(name, file, text, HOLDS, bounds, tried=met, engine=engine)
-    if several:
+    if several and example is not None:
         v.verdict = REFUTED
-        ex = next(p.normalize[trn]["example"] for p in parts
-                  if p.normalize.get(trn, {}).get("example"))
+        if example.get("cycles"):
+            evidence = (f"group {group} has no normal form from {example['term']}: its reduction "
+                        "graph is complete and every path cycles")
+        else:
+            evidence = (f"group {group} reaches several normal forms from {example['term']}: "
+                        f"{', '.join(example['normal_forms'])}")
         v.counterexample = Counterexample(
-            0, {"term": ex["term"], "normal_forms": ex["normal_forms"]},
-            f"group {group} reaches several normal forms from "
-            f"{ex['term']}: {', '.join(ex['normal_forms'])}")
-    elif cut:
+            example["size"], {"term": example["term"], "normal_forms": example["normal_forms"]},
+            evidence)
+    elif cuts:
         v.verdict = INCONCLUSIVE
-        v.undecided = cut
-        v.cut_by = next(p.normalize[trn]["cut_by"] for p in parts
-                        if p.normalize.get(trn, {}).get("cut"))
-        v.reason = f"{cut} term(s) had no normal form within the bound on {v.cut_by}"
+        v.undecided = sum(cuts.values())
+        v.cut_by = cuts.most_common(1)[0][0]
+        v.reason = (f"{v.undecided} of {met} case(s) met a term with no normal form under "
+                    f"{group} within the bound on {v.cut_by}")
     return v
+
+
+def first_failure(parts: list[Partial], collect_all: bool) -> int | None:
+    """The index an obligation's verdict stops at (its first counterexample), if any."""
+    if collect_all:
+        return None
+    indices = [f.index for p in parts for f in p.failures]
+    return min(indices) if indices else None
 
 
 def is_relational(ob: Obligation) -> bool:

@@ -43,6 +43,7 @@ from rules.rewrite import (
     join,
     normal_forms,
     path_steps,
+    position_text,
     reaches,
     reduction_graph,
     reducts,
@@ -394,9 +395,14 @@ def decide_terminating(spec: Spec, what, bounds: Bounds) -> Verdict:
         if cycle is not None:
             if _recheck_cycle(calc, group, t, cycle, b):
                 shown = [print_abstract(calc, c) for c in cycle]
+                around = [shown[0]]
+                for x, y, text in zip(cycle, cycle[1:] + cycle[:1], shown[1:] + shown[:1],
+                                      strict=True):
+                    e = g.edges[x, y]
+                    around.append(f"->[{e['rule']} at {position_text(e['position'])}] {text}")
                 ce = Counterexample(t.size, {"term": print_abstract(calc, t), "cycle": shown},
-                                    f"reduction cycle of {len(cycle)} term(s): "
-                                    f"{_path_text(calc, g, cycle[0])} -> ... -> {shown[0]}")
+                                    f"{_path_text(calc, g, cycle[0])}, and then the reduction "
+                                    f"cycle {' '.join(around)}")
                 return Verdict(tg.name, tg.file, tg.text, REFUTED, b, tried=tried,
                                undecided=undecided, cut_by=_most(cuts), counterexample=ce,
                                seconds=time.perf_counter() - start, notes=notes)

@@ -145,8 +145,10 @@ class Evaluator:
         self.spec = spec
         self.bounds = bounds
         self.translators: dict[str, Translator] = {}
-        self.undefined: dict[str, list[Undefined]] = {}
-        self.normalized_met: dict[str, int] = {}
+        # per case: translation -> worst normalisation outcome (0 fine, 1 cut by steps,
+        # 3 cut by nodes, 2 definitely undefined: several normal forms, or none at all in a
+        # complete graph), and the Undefined behind it; reset by the engine before each case
+        self.case_norm: dict[str, tuple[int, Undefined | None]] = {}
 
     def translator(self, name: str) -> Translator:
         t = self.translators.get(name)
@@ -176,10 +178,13 @@ class Evaluator:
         tr = self.translator(e.translation)
         v = tr.apply_or_undefined(e.fn, args[0], args[1:])
         if tr.tr.normalize is not None:
-            key = tr.tr.name
-            self.normalized_met[key] = len(tr._norm)
+            code = 0
             if isinstance(v, Undefined):
-                self.undefined.setdefault(key, []).append(v)
+                definite = v.reason == "several-normal-forms" or v.cut_by == "cycle"
+                code = 2 if definite else (3 if v.cut_by == "nodes" else 1)
+            old = self.case_norm.get(tr.tr.name)
+            if old is None or (code == 2) > (old[0] == 2) or (old[0] == 0 and code):
+                self.case_norm[tr.tr.name] = (code, v if isinstance(v, Undefined) else None)
         seen[self.text(e)] = v
         return v
 

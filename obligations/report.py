@@ -48,8 +48,8 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
         lines.append(f"{indent}{label} {v.name:<{width}}  {_summary(v)}")
     # a shorthand's own entry has no evidence of its own: its parts carry it
     details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")
-               and (v.counterexample is not None or v.part_of is not None or not _has_parts(
-                   v, verdicts))]
+               and (v.counterexample is not None or v.undecided_example is not None
+                    or v.part_of is not None or not _has_parts(v, verdicts))]
     for v in details:
         lines.append("")
         lines.extend(evidence_lines(v, colour))
@@ -115,6 +115,14 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
         if graph:
             state = "complete" if graph.get("complete") else f"cut by {graph.get('cut_by')}"
             out.append(f"  graph:    {graph.get('nodes')} term(s) from {graph.get('root')}, {state}")
+    ex = v.undecided_example
+    if ex is not None:
+        out.append("  smallest undecided case" + (f" (size {ex.size}):" if ex.size else ":"))
+        keyw = max((len(k) for k in ex.terms), default=1)
+        for k, val in ex.terms.items():
+            out.append(f"    {k:<{keyw}} = {val}")
+        if ex.evidence:
+            out.append(f"  undecided: {ex.evidence}")
     for n in v.notes:
         out.append(f"  note:     {n}")
     return out

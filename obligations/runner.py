@@ -97,8 +97,12 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
             parts = [x for x in relational if x.name == o["name"]]
             v = bounded.combine(o["name"], o["file"], o["formula"], b, parts)
         elif o["kind"] == "normalize":
+            cutoffs = {}
+            for name in {x.name for x in relational}:
+                mine = [x for x in relational if x.name == name]
+                cutoffs[name] = bounded.first_failure(mine, any(x.collect_all for x in mine))
             v = bounded.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
-                                          o["group"], b, relational)
+                                          o["group"], b, relational, cutoffs)
         else:
             v = Verdict.from_json(o["verdict"])
         if o["head"]:

@@ -63,6 +63,7 @@ class Verdict:
     more: list[Counterexample] = field(default_factory=list)  # with --all
     notes: list[str] = field(default_factory=list)
     part_of: str | None = None
+    undecided_example: Counterexample | None = None  # the smallest undecided case
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -83,6 +84,8 @@ class Verdict:
             out["reason"] = self.reason
         if self.more:
             out["counterexamples"] = [c.to_json() for c in self.more]
+        if self.undecided_example is not None:
+            out["undecided_example"] = self.undecided_example.to_json()
         if self.notes:
             out["notes"] = list(self.notes)
         if self.part_of is not None:
@@ -104,6 +107,8 @@ class Verdict:
             counterexample=Counterexample.from_json(ce) if ce else None,
             more=[Counterexample.from_json(c) for c in data.get("counterexamples", [])],
             notes=list(data.get("notes", [])), part_of=data.get("part_of"),
+            undecided_example=(Counterexample.from_json(data["undecided_example"])
+                               if data.get("undecided_example") else None),
         )
 
 

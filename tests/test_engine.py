@@ -1,0 +1,122 @@
+"""The enumeration engine's verdicts (LANGUAGE.md §8) on claims with answers worked out
+by hand, and the smallest-counterexample promise checked against an independent search."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from obligations.runner import RunOptions, run_claims
+from rules.enumerate import count_tuples, enumerate_tuples
+from rules.parse import load_file
+from rules.spec import Bounds
+from rules.terms import Term
+
+DATA = Path(__file__).parent / "data" / "engine"
+
+
+@pytest.fixture(scope="module")
+def spec():
+    return load_file(DATA / "basics.calc")
+
+
+@pytest.fixture(scope="module")
+def verdicts(spec):
+    out, _ = run_claims(spec, list(spec.claims), RunOptions())
+    return {v.name: v for v in out}
+
+
+def test_true_claims_hold_with_the_number_of_cases(spec, verdicts) -> None:
+    lam = spec.calculi["lam"]
+    total = count_tuples([(lam, "term")], 5, 1)
+    for name in ("identity", "flip_back", "dup_sim", "member", "joins_self", "plus_step",
+                 "opt_step"):
+        v = verdicts[name]
+        assert v.verdict == "holds", (name, v.reason)
+        assert v.scope == "bounded" and v.tried == total and v.undecided == 0
+        assert v.bounds == Bounds(5, 10, 1, 2000)
+
+
+def test_refuted_equality_has_the_smallest_counterexample(spec, verdicts) -> None:
+    v = verdicts["flip_same"]
+    assert v.verdict == "refuted"
+    ce = v.counterexample
+    # flip(M) == M fails first where an application has two different arguments
+    assert ce.terms["M"] == "lam(y.app(y, x))" and ce.terms["flip(M)"] == "lam(y.app(x, y))"
+    assert ce.size == 4
+    assert "position 0" in ce.evidence and ce.details["position"] == "0"
+    _no_smaller_case_fails(spec, ce.size, lambda m: _flip(m) is not m)
+
+
+def test_refuted_simulation_names_the_premise_step_and_the_graph(verdicts) -> None:
+    v = verdicts["flip_sim"]
+    assert v.verdict == "refuted"
+    ce = v.counterexample
+    assert list(ce.terms) == ["M", "N", "flip(M)", "flip(N)"]
+    assert ce.details["premise_step"] == {"rule": "beta", "position": "root"}
+    g = ce.details["graph"]
+    assert g["complete"] is True and g["cut_by"] is None
+    assert ce.details["joins"] is False
+
+
+def test_cut_graphs_make_a_claim_inconclusive_naming_the_bound(verdicts) -> None:
+    v = verdicts["back"]
+    assert v.verdict == "inconclusive"
+    assert v.cut_by == "steps" and v.undecided > 0
+    ex = v.undecided_example
+    assert ex.terms["M"] == "f(x)" and ex.terms["N"] == "f(s(x))"
+
+
+def test_normalize_part_is_refuted_and_the_claim_inconclusive(verdicts) -> None:
+    part = verdicts["forked.normalize(into_fork)"]
+    assert part.verdict == "refuted" and part.part_of == "forked"
+    assert part.counterexample.terms["normal_forms"] == ["a", "b"]
+    head = verdicts["forked"]
+    assert head.verdict == "inconclusive" and head.cut_by == "normalize"
+
+
+def test_steps_bound_from_the_command_line_wins(spec) -> None:
+    claim = next(c for c in spec.claims if c.name == "back")
+    out, _ = run_claims(spec, [claim], RunOptions(bounds=Bounds(steps=1, size=3)))
+    assert out[0].bounds.steps == 1 and out[0].bounds.size == 3
+
+
+def test_jobs_give_the_same_verdicts(spec) -> None:
+    one, _ = run_claims(spec, list(spec.claims), RunOptions(jobs=1))
+    two, _ = run_claims(spec, list(spec.claims), RunOptions(jobs=2))
+    strip = [_stable(v.to_json()) for v in one]
+    assert strip == [_stable(v.to_json()) for v in two]
+
+
+def test_collect_all_keeps_going(spec) -> None:
+    claim = next(c for c in spec.claims if c.name == "flip_same")
+    out, _ = run_claims(spec, [claim], RunOptions(collect_all=True))
+    v = out[0]
+    assert v.verdict == "refuted" and 1 < len(v.more) <= 10
+    sizes = [c.size for c in v.more]
+    assert sizes == sorted(sizes) and v.more[0].terms == v.counterexample.terms
+
+
+def _stable(d: dict) -> dict:
+    d = dict(d)
+    d.pop("seconds", None)
+    return d
+
+
+def _flip(t: Term) -> Term:
+    from rules.terms import Node, node
+
+    if isinstance(t, Node):
+        args = [_flip(a) for a in t.args]
+        if t.con == "app":
+            args.reverse()
+        return node(t.con, args, t.binders)
+    return t
+
+
+def _no_smaller_case_fails(spec, size: int, fails) -> None:
+    """An independent check of minimality: no term smaller than the counterexample fails."""
+    lam = spec.calculi["lam"]
+    for (m,) in enumerate_tuples([(lam, "term")], size - 1, 1):
+        assert not fails(m)

@@ -122,7 +122,7 @@ def terms(file: str, sort: str, size: int | None, names: int | None, count: bool
     if count:
         click.echo(count_terms(calc, sname, b.size, b.names))
         return
-    out = click.get_text_stream("stdout")
+    out = sys.stdout
     for t in enumerate_terms(calc, sname, b.size, b.names):
         out.write(print_abstract(calc, t) + "\n")
 
@@ -267,7 +267,7 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
     if junit_path is not None:
         write_atomically(junit_path, junit_report(spec.file, verdicts))
     if json_path != "-":
-        out = click.get_text_stream("stdout")
+        out = sys.stdout
         out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
 

@@ -21,6 +21,7 @@ from typing import Any
 
 from rules.enumerate import count_tuples
 from rules.spec import Bounds, Claim, Spec
+from rules.translate import TranslationFailure
 
 from . import bounded
 from .claims import Obligation, plan
@@ -48,7 +49,15 @@ def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions
     out: list[Verdict] = []
     records: dict[str, Any] = {}
     for claim in claims:
-        rec = claim_records(spec, claim, opts)
+        try:
+            rec = claim_records(spec, claim, opts)
+        except TranslationFailure as e:
+            # a missing case met at run time: say which claim met it, and where it is
+            for p in e.problems:
+                p.message = f"claim {claim.name}: {p.message}"
+                if p.pos is None:
+                    p.pos = claim.pos
+            raise
         records[claim.name] = rec
         out.extend(finish_claim(rec))
     return out, records

@@ -45,9 +45,14 @@ class _Bad(Exception):
 
 
 def resolve_claims(raws: list[RawClaim], calculi: dict[str, Calculus],
-                   translations: dict[str, Translation], loader: Loader) -> list[Claim]:
+                   translations: dict[str, Translation], loader: Loader,
+                   broken: set[str] | frozenset[str] = frozenset()) -> list[Claim]:
+    """``broken``: translations that failed to load (their errors are reported already, so
+    claims that use them are skipped without a second message)."""
     out = []
     for raw in raws:
+        if _mentions(raw, broken):
+            continue
         try:
             claim = ClaimResolver(raw, calculi, translations, loader).resolve()
         except _Bad:
@@ -331,6 +336,18 @@ def _is_shorthand(a: RawAtom, translations: dict[str, Translation]) -> bool:
     return (a.relation is None and a.member_of is None and a.left.args is not None
             and a.left.name in SHORTHANDS and a.left.name not in translations
             and not any(a.left.name in t.signatures for t in translations.values()))
+
+
+def _mentions(raw: RawClaim, names: set[str] | frozenset[str]) -> bool:
+    if not names:
+        return False
+
+    def expr(e: RawExpr | None) -> bool:
+        if e is None or e.args is None:
+            return e is not None and e.name in names
+        return e.name in names or any(expr(a) for a in e.args)
+
+    return any(expr(a.left) or expr(a.right) for a in raw.atoms)
 
 
 def _metas_in(e: RawExpr) -> list[str]:

@@ -135,8 +135,9 @@ class Loader:
         translations = build_translations(raw_trs, calculi, self)
         top_file = self.files[0]
         bounds = self.bounds(top_file.bounds)
+        broken = set(raw_trs) - set(translations)  # their errors are reported already
         claims = resolve_claims([c for f in self.files for c in f.claims], calculi,
-                                translations, self)
+                                translations, self, broken)
         names = {c.name for c in claims}
         if len(names) != len(claims):
             seen: set[str] = set()

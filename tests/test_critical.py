@@ -197,3 +197,22 @@ def test_pairs_report_has_the_documented_shape():
     assert entry["instance"] == {"peak": "mul(mul(inv(x), x), x)",
                                  "left": "mul(inv(x), mul(x, x))", "right": "mul(e, x)"}
     assert [e["status"] for e in report["pairs"]] == ["joinable", "not-joinable", "joinable"]
+
+
+# ---------------------------------------------------------------- soundness
+
+
+def test_a_free_in_condition_is_not_used_symbolically():
+    c = calc("critical/soundness.calc", "guarded")
+    ov = overlaps(c)
+    pair = next(p for p in ov.pairs if p.rules == ("wrap_let", "wrap_sub"))
+    assert (pair.show(pair.left), pair.show(pair.right)) == ("let(N, x.M)", "M[x := N]")
+    j = ov.joinability(pair, BOUNDS)
+    assert (j.status, j.how) == ("not-joinable", "instances")
+    assert print_abstract(c, j.instance[1]) == "let(x, y.x)"
+
+
+def test_a_names_metavariable_under_a_binder_splits_into_cases():
+    c = calc("critical/soundness.calc", "names_under")
+    got = {(p.rules, p.show(p.peak)) for p in critical_pairs(c)}
+    assert got == {(("under", "var_f"), "lam(x.f(x))"), (("under", "var_f"), "lam(x.f(y))")}

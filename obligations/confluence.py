@@ -273,7 +273,27 @@ def _binders(p: Pattern) -> set[str]:
 def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | None, str | None]:
     """``(reason, None)`` when a published theorem proves ``calc`` (its
     ``group``) confluent, with its side conditions checked; otherwise
-    ``(None, why_not)``."""
+    ``(None, why_not)``.
+
+    The hypotheses checked: the compatible closure (``reduce anywhere``);
+    left-hand sides without contexts, left-linear, every metavariable over a
+    sort of every term (a restricted sort could be left by a reduct or a
+    substitution, destroying a redex) and every name bound by the left-hand
+    side; conditions only ``x fresh in T`` for such a name (which is the
+    pattern's own restriction, ``T``'s metavariables not seeing ``x``).  Then
+    orthogonality (no critical pair) or parallel-closed critical pairs.  For
+    systems with binders the parallel-closed case rests on van Oostrom's
+    development-closed theorem for pattern rewriting (recalled from memory:
+    V. van Oostrom, "Developing developments", TCS 175, 1997), a parallel step
+    being a development of disjoint redexes.
+
+    >>> from rules.parse import load_text
+    >>> calc = load_text('''calculus c { sort t M N ::= a | b | f(M)
+    ...   rule r1: f(a) -> b
+    ...   rule r2: a -> b }''').calculi["c"]
+    >>> confluence_theorem(calc)[1]
+    'critical pair of r1 and r2 at 0 is not parallel-closed'
+    """
     if calc.reduce_in is not None:
         return None, f"reduction only in context {calc.reduce_in}, not the compatible closure"
     g = grammar(calc)

@@ -415,7 +415,20 @@ def unify(
 ) -> list[Unifier]:
     """The most general unifiers of ``s`` and ``t``, one per case of the sort
     constraints (none: they do not unify).  ``env[i]`` is the names sort of
-    bound index ``i`` at the place where ``s`` and ``t`` stand."""
+    bound index ``i`` at the place where ``s`` and ``t`` stand.
+
+    >>> from rules.parse import load_text
+    >>> calc = load_text("calculus c { sort t M N ::= a | b | f(M, N) }").calculi["c"]
+    >>> from rules.sorts import grammar
+    >>> every = frozenset(grammar(calc).states_with("t"))
+    >>> metas = {m: MetaInfo(m, "t", states=every) for m in ("X", "Y")}
+    >>> [u] = unify(calc, UNode("f", (UMeta("X"), UNode("b")), (0, 0)),
+    ...             UNode("f", (UNode("a"), UMeta("Y")), (0, 0)), metas)
+    >>> first_order(u.apply(UMeta("X"))), first_order(u.apply(UMeta("Y")))
+    (('a',), ('b',))
+    >>> unify(calc, UMeta("X"), UNode("f", (UMeta("X"), UNode("a")), (0, 0)), metas)
+    []
+    """
     p = _Problem(calc, metas)
     try:
         p.unify(s, t, env)

@@ -85,12 +85,14 @@ UNDEFINED_CON = "#undefined"
 # ---------------------------------------------------------------- formulas
 
 
+# Constants are Python's True and False throughout (z3's own constants are never made
+# here), so these tests are identity checks: asking z3 costs a call into the library.
 def is_true(f) -> bool:
-    return f is True or (isinstance(f, z3.BoolRef) and z3.is_true(f))
+    return f is True
 
 
 def is_false(f) -> bool:
-    return f is False or (isinstance(f, z3.BoolRef) and z3.is_false(f))
+    return f is False
 
 
 def f_and(xs: Iterable) -> Formula:

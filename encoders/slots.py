@@ -269,7 +269,7 @@ class Universe:
             guards, branches = [], []
             for r in range(m + 1, self.N):
                 seen = set()
-                for q, a, j, bns in self.binding:
+                for _p, a, j, bns in self.binding:
                     c = self.code(r, a, j)
                     if bns == p.ns and c not in seen:
                         seen.add(c)

@@ -16,6 +16,7 @@ gives exactly the verdict of an unsharded run.
 
 from __future__ import annotations
 
+import gc
 import time
 from collections import Counter
 from collections.abc import Callable
@@ -24,7 +25,7 @@ from typing import Any
 
 from rules.enumerate import count_tuples, enumerate_tuples
 from rules.notation import parse_term, print_abstract
-from rules.rewrite import reaches, reduction_graph
+from rules.rewrite import paused_gc, reaches, reduction_graph
 from rules.spec import Atom, Bounds, Confluent, Implies, Spec, Terminating
 from rules.terms import Term
 from rules.translate import Undefined
@@ -106,7 +107,19 @@ def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int]
     part.total = count_tuples(slots, bounds.size, bounds.names)
     i0, n = (shard[0] - 1, shard[1]) if shard else (0, 1)
     stream = enumerate_tuples(slots, bounds.size, bounds.names, shard=shard)
+    with paused_gc():
+        _run_cases(spec, ob, bounds, ev, f, stream, i0, n, part, collect_all, progress)
+    part.seconds = time.perf_counter() - start
+    return part
+
+
+def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Atom | Implies,
+               stream, i0: int, n: int, part: Partial, collect_all: bool,
+               progress: Progress | None) -> None:
+    """Decide the stream's cases in order, stopping at the first failure unless collecting."""
     for k, values in enumerate(stream):
+        if k % 512 == 511:
+            gc.collect(0)  # the young generation only: cheap, and frees any short cycles
         index = i0 + k * n
         env = {m.name: v for m, v in zip(ob.quantified, values, strict=True)}
         part.tried += 1
@@ -129,8 +142,6 @@ def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int]
             part.failures.append(Failure(index, ce))
             if not collect_all or len(part.failures) >= ALL_LIMIT:
                 break
-    part.seconds = time.perf_counter() - start
-    return part
 
 
 def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):

@@ -327,6 +327,52 @@ def reduce(file: str, calc_name: str, term: str, steps, nodes, dot_path, json_ou
                    + f" -> {print_term(calc, cycle[0])}")
 
 
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("calc_name", metavar="CALC")
+@size_option
+@steps_option
+@nodes_option
+@click.option("--json", "json_out", metavar="-", default=None,
+              help="Print the pairs as JSON (give -).")
+def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
+    """List the critical pairs of CALC (CALC.GROUP for one rule group) and whether they join.
+
+    A pair is settled symbolically (for all instances) or by instances of its
+    metavariables up to --size; the output says which.
+    """
+    from rules.critical import pairs_report
+
+    from .report import dumps, write_atomically
+
+    spec = load(file)
+    cname, _, group = calc_name.partition(".")
+    calc = calculus(spec, cname)
+    if group and group not in calc.groups:
+        raise UsageError(f"calculus {cname} has no rule group {group}",
+                         hint="groups: " + (", ".join(calc.groups) or "none"))
+    b = spec.effective_bounds(Bounds(size=size, steps=steps, nodes=nodes))
+    report = pairs_report(calc, b, group or None)
+    if json_out is not None:
+        write_atomically(json_out, dumps(report))
+        return
+    ps = report["pairs"]
+    depth = report.get("context_depth")
+    where = f" (contexts unfolded to depth {depth})" if depth is not None else ""
+    click.echo(f"{cname}{'.' + group if group else ''}: {len(ps)} critical pair(s){where}")
+    for i, p in enumerate(ps, 1):
+        how = f"{p['status']} ({p['how']})" if p.get("how") else p["status"]
+        click.echo(f"  {i}. {p['rules'][0]} / {p['rules'][1]} at {p['position']}: {how}")
+        click.echo(f"     peak  {p['peak']}")
+        click.echo(f"     left  {p['left']}")
+        click.echo(f"     right {p['right']}")
+        if "common" in p:
+            click.echo(f"     both reach {p['common']}")
+        if "instance" in p and p["status"] == "not-joinable":
+            inst = p["instance"]
+            click.echo(f"     instance {inst['peak']} -> {inst['left']} / {inst['right']}")
+
+
 # ---------------------------------------------------------------- merge and explain
 
 

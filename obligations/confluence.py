@@ -28,11 +28,8 @@ memo table of the search is reused) before it is reported.
 from __future__ import annotations
 
 import dataclasses
-import gc
 import time
 from collections import Counter as Tally
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
 
 import networkx as nx
@@ -46,6 +43,7 @@ from rules.rewrite import (
     join,
     normal_forms,
     path_steps,
+    paused_gc,
     position_text,
     reaches,
     reduction_graph,
@@ -165,25 +163,6 @@ def _path_text(calc: Calculus, g: Graph, target: Term) -> str:
     for s in steps:
         parts.append(f"->[{s.rule} at {s.where}] {print_abstract(calc, s.result)}")
     return " ".join(parts)
-
-
-@contextmanager
-def paused_gc() -> Iterator[None]:
-    """Pause Python's cyclic garbage collector while one graph is explored.
-
-    Exploring allocates many small objects that all stay alive (terms, memo
-    entries, graph dicts), so the collector's full passes rescan an ever larger
-    heap for nothing: on a 120,000-term graph they took more than half the time
-    (tests/bench/bench_confluence.py).  Reference counting still frees what
-    dies; cycles wait until the collector resumes after the graph.
-    """
-    was = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was:
-            gc.enable()
 
 
 # ---------------------------------------------------------------- re-checks

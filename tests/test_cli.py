@@ -185,3 +185,18 @@ def _without_timings(report: dict) -> dict:
     for c in report["claims"]:
         c.pop("seconds", None)
     return report
+
+
+def test_pairs_text_and_json(capsys) -> None:
+    groups = str(Path(__file__).parent.parent / "rules" / "library" / "groups.calc")
+    code, out, _ = run(capsys, "pairs", groups, "group", "--json", "-")
+    report = json.loads(out)
+    assert code == 0 and report["calculus"] == "group"
+    statuses = sorted(p["status"] for p in report["pairs"])
+    # the group axioms oriented left to right have three critical pairs, one of which
+    # (associativity over the left inverse) does not join (Knuth and Bendix 1970)
+    assert statuses == ["joinable", "joinable", "not-joinable"]
+    code, out, _ = run(capsys, "pairs", groups, "group")
+    assert code == 0 and "3 critical pair(s)" in out and "not-joinable (instances)" in out
+    code, _, err = run(capsys, "pairs", groups, "group.nosuch")
+    assert code == 2 and "no rule group nosuch" in err

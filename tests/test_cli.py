@@ -200,3 +200,9 @@ def test_pairs_text_and_json(capsys) -> None:
     assert code == 0 and "3 critical pair(s)" in out and "not-joinable (instances)" in out
     code, _, err = run(capsys, "pairs", groups, "group.nosuch")
     assert code == 2 and "no rule group nosuch" in err
+
+
+def test_reduce_refuses_a_term_outside_every_sort(capsys) -> None:
+    # num takes a digit, and x is a name of sort var: num(x) is in no sort of arith
+    code, _, err = run(capsys, "reduce", EVERY, "arith", "num(x)")
+    assert code == 2 and "not a term of calculus arith" in err

@@ -156,3 +156,20 @@ def test_string_escapes() -> None:
     spec = load_text('calculus c { names var x\n sort term M ::= x | q(M) "\\\\ M \\"" }')
     note = spec.calculi["c"].sorts["term"].alts[1].notation
     assert note.text == '\\ M "'
+
+
+def test_bounds_precedence_command_line_within_file_defaults() -> None:
+    """LANGUAGE.md §7: command-line flags over `within`, `within` over the file's `bounds`,
+    and that over the built-in defaults (size 6, names 1, steps 10, nodes 20000)."""
+    from rules.spec import Bounds
+
+    base = "calculus c { names var x\n sort term M ::= x | s(M) }\n"
+    plain = load_text(base + "claim k: M ->* M")
+    claim = plain.claims[0]
+    assert plain.effective_bounds(Bounds(), claim.within) == Bounds(6, 10, 1, 20000)
+    filed = load_text(base + "bounds size 3, nodes 7\nclaim k: M ->* M within size 4, steps 2")
+    claim = filed.claims[0]
+    assert filed.effective_bounds(Bounds(), claim.within) == Bounds(4, 2, 1, 7)
+    assert filed.effective_bounds(Bounds(size=9, names=0), claim.within) == Bounds(9, 2, 0, 7)
+    with pytest.raises(CalcError, match="unknown bound 'depth'"):
+        load_text(base + "bounds depth 3")

@@ -148,6 +148,17 @@ def test_cps_and_ds_are_not_a_galois_connection_on_lambda_v():
     assert not grammar(calc).member(parse_term(calc, p), "comp")
 
 
+def test_eta_v_needs_eta_in_the_target():
+    # Plotkin 1975 states soundness with beta and eta in the target (recalled from memory):
+    # \y. x y ->eta_v x, and their translations are distinct beta normal forms that eta joins.
+    v = check(PLOTKIN, "cps_etav_beta", size=6)["cps_etav_beta"]
+    assert v.verdict == "refuted"
+    assert v.counterexample.size == 4
+    assert v.counterexample.terms["M"] == "lam(y.app(x, y))"
+    assert v.counterexample.terms["N"] == "x"
+    assert holds(check(PLOTKIN, "cps_etav_eta", size=6)["cps_etav_eta"])
+
+
 def test_cps_with_administrative_normalisation():
     # The translation followed by administrative normalisation, as the one-pass translation
     # of Danvy and Filinski, "Representing control", MSCS 1992, produces it: its image is the

@@ -1,0 +1,78 @@
+"""Benchmark: relational claims on Plotkin's call-by-value CPS translation.
+
+Prints, for sizes 5 to 8: claims and cases per second, the share of time spent
+enumerating, translating and searching reduction graphs, the cost per case,
+the process's peak resident memory (tracemalloc would slow the run several
+times over), and the speed-up of --jobs 2 over --jobs 1.  Run: .venv/bin/python tests/bench/bench_claims.py
+"""
+
+from __future__ import annotations
+
+import resource
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE.parent.parent))
+
+from obligations.runner import RunOptions, run_claims  # noqa: E402
+from rules.enumerate import enumerate_terms  # noqa: E402
+from rules.parse import load_file  # noqa: E402
+from rules.spec import Bounds  # noqa: E402
+from rules.translate import Translator  # noqa: E402
+
+PLOTKIN = HERE.parent / "data" / "translate" / "plotkin.calc"
+CLAIMS = f"""include "{PLOTKIN}"
+claim sim: M -> N implies cbv(M) joins cbv(N)
+claim image: cbv(M) : term
+"""
+
+
+def main() -> None:
+    with tempfile.TemporaryDirectory() as d:
+        path = Path(d) / "bench.calc"
+        path.write_text(CLAIMS)
+        spec = load_file(path)
+    lamv = spec.calculi["lamv"]
+    print(f"{'size':>4} {'cases':>8} {'claims/s':>9} {'cases/s':>9} {'us/case':>8} "
+          f"{'enum%':>6} {'transl%':>8} {'graph%':>7} {'peak MiB':>9}")
+    for size in (5, 6, 7, 8):
+        b = Bounds(size=size, names=1, steps=10, nodes=2000)
+        t0 = time.perf_counter()
+        terms = 0
+        for _ in enumerate_terms(lamv, "term", size, 1):
+            terms += 1
+        t_enum = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        tr = Translator(spec, spec.translations["cbv"], b)
+        for t in enumerate_terms(lamv, "term", size, 1):
+            tr.apply("cbv", t)
+        t_transl = time.perf_counter() - t0 - t_enum
+        t0 = time.perf_counter()
+        verdicts, _ = run_claims(spec, list(spec.claims), RunOptions(bounds=b))
+        total = time.perf_counter() - t0
+        peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+        cases = sum(v.tried for v in verdicts if not v.part_of)
+        assert all(v.verdict == "holds" for v in verdicts), [(v.name, v.verdict) for v in verdicts]
+        # the claims enumerate the terms twice (once per claim) and translate them in each
+        enum_share = 2 * t_enum / total
+        transl_share = 2 * max(t_transl, 0.0) / total
+        graph_share = max(0.0, 1 - enum_share - transl_share)
+        print(f"{size:>4} {cases:>8} {len(verdicts) / total:>9.2f} {cases / total:>9.0f} "
+              f"{1e6 * total / cases:>8.1f} {100 * enum_share:>5.1f}% {100 * transl_share:>7.1f}% "
+              f"{100 * graph_share:>6.1f}% {peak / 2**20:>10.0f}")
+    b = Bounds(size=8, names=1, steps=10, nodes=2000)
+    times = {}
+    for jobs in (1, 2):
+        t0 = time.perf_counter()
+        run_claims(spec, list(spec.claims), RunOptions(bounds=b, jobs=jobs))
+        times[jobs] = time.perf_counter() - t0
+    print(f"size 8: --jobs 1 {times[1]:.2f}s, --jobs 2 {times[2]:.2f}s, "
+          f"speed-up {times[1] / times[2]:.2f}x")
+    print(f"max resident set: {resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MiB")
+
+
+if __name__ == "__main__":
+    main()

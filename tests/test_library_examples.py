@@ -15,10 +15,11 @@ from pathlib import Path
 import pytest
 
 from obligations.runner import RunOptions, run_claims
-from obligations.verdict import Verdict
+from obligations.verdict import Counterexample, Verdict
 from rules.errors import CalcError
 from rules.notation import parse_term, print_abstract
 from rules.parse import load_file
+from rules.rewrite import reducts
 from rules.sorts import grammar
 from rules.spec import Bounds, Spec
 from rules.translate import Translator
@@ -35,17 +36,40 @@ def spec(file: str) -> Spec:
 
 
 @cache
-def _run(file: str, claim: str, bounds: Bounds) -> dict[str, Verdict]:
+def _run(file: str, claim: str, bounds: Bounds, collect_all: bool = False
+         ) -> dict[str, Verdict]:
     s = spec(file)
     chosen = [c for c in s.claims if c.name == claim]
     assert chosen, f"{file} has no claim {claim}"
-    verdicts, _ = run_claims(s, chosen, RunOptions(bounds=bounds))
+    verdicts, _ = run_claims(s, chosen, RunOptions(bounds=bounds, collect_all=collect_all))
     return {v.name: v for v in verdicts}
 
 
 def check(file: str, claim: str, **bounds: int) -> dict[str, Verdict]:
     """The verdicts of one claim and its parts, by name; ``bounds`` as on the command line."""
     return _run(file, claim, Bounds(**bounds))
+
+
+def smallest(file: str, claim: str, part: str | None = None, **bounds: int
+             ) -> list[Counterexample]:
+    """The refuted claim's (or part's) counterexamples of the smallest size, as ``--all``
+    collects them (at most ten), so that a test does not depend on which of several
+    equally small cases the enumeration meets first."""
+    v = _run(file, claim, Bounds(**bounds), True)[part or claim]
+    assert v.verdict == "refuted", v
+    first = _run(file, claim, Bounds(**bounds))[part or claim].counterexample
+    found = v.more or [v.counterexample]
+    assert first is not None and first.terms == found[0].terms
+    return [c for c in found if c.size == first.size]
+
+
+def values(ces: list[Counterexample], key: str) -> list[str]:
+    return [c.terms[key] for c in ces]
+
+
+def is_normal(file: str, calc: str, text: str) -> bool:
+    c = spec(file).calculi[calc]
+    return not reducts(c, parse_term(c, text))
 
 
 def translate(file: str, translation: str, text: str) -> str:
@@ -99,13 +123,11 @@ def test_cps_does_not_simulate_step_for_step():
     # The administrative redexes of the naive translation: one beta_v step costs several
     # target steps, which is why Plotkin 1975 introduces the colon translation for his
     # simulation theorem.  Smallest case: the smallest beta_v redex (\y. y) x.
-    v = check(PLOTKIN, "cps_lockstep", size=6)["cps_lockstep"]
-    assert v.verdict == "refuted"
-    ce = v.counterexample
-    assert ce.size == 4
-    assert ce.terms["M"] == "app(lam(y.y), x)"
-    assert ce.terms["N"] == "x"
-    assert ce.terms["cps(N)"] == "klam(k.app(k, x))"
+    ces = smallest(PLOTKIN, "cps_lockstep", size=5)
+    assert ces[0].size == 4
+    assert "app(lam(y.y), x)" in values(ces, "M")
+    for ce in ces:  # every smallest case is one beta_v step at the root
+        assert ce.details["premise_step"] == {"rule": "beta_v", "position": "root"}
 
 
 def test_cps_image_is_the_grammar_and_the_inverse_is_exact():
@@ -118,10 +140,12 @@ def test_cps_image_is_the_grammar_and_the_inverse_is_exact():
 def test_cps_image_grammar_is_wider_than_the_image():
     # A grammar cannot say which continuation variable is in scope: the smallest term of comp
     # outside the image returns from an inner computation to the outer continuation k.
-    v = check(PLOTKIN, "cps_grammar_exact")["cps_grammar_exact"]
-    assert v.verdict == "refuted"
-    assert v.counterexample.size == 8
-    assert v.counterexample.terms["P"] == "klam(k.app(k, lam(x.klam(k1.app(k, x)))))"
+    ces = smallest(PLOTKIN, "cps_grammar_exact")
+    assert ces[0].size == 8
+    assert "klam(k.app(k, lam(x.klam(k1.app(k, x)))))" in values(ces, "P")
+    calc = spec(PLOTKIN).calculi["cpsv"]
+    for p in values(ces, "P"):  # in the grammar, yet not a translation
+        assert grammar(calc).member(parse_term(calc, p), "comp")
 
 
 def test_cps_and_ds_are_not_a_galois_connection_on_lambda_v():
@@ -133,29 +157,24 @@ def test_cps_and_ds_are_not_a_galois_connection_on_lambda_v():
     assert vs["cps_gc"].verdict == "refuted"
     assert holds(vs["cps_gc.mono(F)"])
     assert holds(vs["cps_gc.unit"])
-    counit = vs["cps_gc.counit"]
-    assert counit.verdict == "refuted"
     # a target term that is no CPS term at all: a variable is not [anything]
-    assert counit.counterexample.size == 1
-    assert counit.counterexample.terms["P"] == "x"
-    mono = vs["cps_gc.mono(G)"]
-    assert mono.verdict == "refuted"
+    counit = smallest(PLOTKIN, "cps_gc", "cps_gc.counit", size=6)
+    assert counit[0].size == 1
+    assert "x" in values(counit, "P")
     # an administrative step outside the image: ds cannot follow it
-    p = mono.counterexample.terms["P"]
-    assert p == "app(klam(k.x), x)"
-    s = spec(PLOTKIN)
-    calc = s.calculi["cpsv"]
-    assert not grammar(calc).member(parse_term(calc, p), "comp")
+    mono = smallest(PLOTKIN, "cps_gc", "cps_gc.mono(G)", size=6)
+    assert mono[0].size == 4
+    assert "app(klam(k.x), x)" in values(mono, "P")
+    calc = spec(PLOTKIN).calculi["cpsv"]
+    for p in values(mono, "P"):
+        assert not grammar(calc).member(parse_term(calc, p), "comp")
 
 
 def test_eta_v_needs_eta_in_the_target():
     # Plotkin 1975 states soundness with beta and eta in the target (recalled from memory):
     # \y. x y ->eta_v x, and their translations are distinct beta normal forms that eta joins.
-    v = check(PLOTKIN, "cps_etav_beta", size=6)["cps_etav_beta"]
-    assert v.verdict == "refuted"
-    assert v.counterexample.size == 4
-    assert v.counterexample.terms["M"] == "lam(y.app(x, y))"
-    assert v.counterexample.terms["N"] == "x"
+    ces = smallest(PLOTKIN, "cps_etav_beta", size=5)
+    assert [(c.size, c.terms["M"], c.terms["N"]) for c in ces] == [(4, "lam(y.app(x, y))", "x")]
     assert holds(check(PLOTKIN, "cps_etav_eta", size=6)["cps_etav_eta"])
 
 
@@ -171,10 +190,10 @@ def test_cps_with_administrative_normalisation():
     assert holds(vs["cpsa_sim.normalize(cpsa)"])
     assert holds(check(PLOTKIN, "cpsa_join", size=5)["cpsa_join"])
     assert holds(check(PLOTKIN, "cpsa_image", size=5)["cpsa_image"])
-    v = check(PLOTKIN, "cpsa_image_naive", size=6)["cpsa_image_naive"]
-    assert v.verdict == "refuted"
-    assert v.counterexample.terms["M"] == "app(x, x)"
-    assert v.counterexample.terms["cpsa(M)"] == "klam(k.app(app(x, x), k))"
+    ces = smallest(PLOTKIN, "cpsa_image_naive", size=4)
+    assert ces[0].size == 3
+    assert ("app(x, x)", "klam(k.app(app(x, x), k))") in [(c.terms["M"], c.terms["cpsa(M)"])
+                                                          for c in ces]
 
 
 @pytest.mark.slow
@@ -202,34 +221,48 @@ def test_bracket_abstraction_of_small_terms(term, combinator):
 def test_weak_reduction_does_not_simulate_beta_under_a_lambda():
     # Hindley and Seldin 2008 (and Barendregt 1984, ch. 7): \x.(\y.y)x -> \x.x, but their
     # translations S(KI)I and I are distinct weak normal forms.
-    vs = check(BRACKET, "cl_sim", size=6)
-    v = vs["cl_sim"]
-    assert v.verdict == "refuted"
-    ce = v.counterexample
-    assert ce.size == 5
-    assert ce.terms["M"] == "lam(x.app(lam(y.y), x))"
-    assert ce.terms["N"] == "lam(x.x)"
-    assert ce.terms["cl(M)"] == "ap(ap(s, ap(k, i)), i)"
-    assert ce.terms["cl(N)"] == "i"
-    assert holds(vs["cl_sim.normalize(cl)"])
-    # not even up to conversion: the two are distinct weak normal forms
-    j = check(BRACKET, "cl_join", size=6)["cl_join"]
-    assert j.verdict == "refuted"
-    assert j.counterexample.terms["M"] == ce.terms["M"]
+    ces = smallest(BRACKET, "cl_sim", size=5)
+    assert ces[0].size == 5
+    textbook = {"M": "lam(x.app(lam(y.y), x))", "N": "lam(x.x)",
+                "cl(M)": "ap(ap(s, ap(k, i)), i)", "cl(N)": "i"}
+    assert textbook in [c.terms for c in ces]
+    for ce in ces:  # all of the textbook kind: a beta step under the lambda, two weak normal forms
+        assert ce.details["premise_step"] == {"rule": "beta", "position": "0"}
+        assert ce.terms["cl(M)"] != ce.terms["cl(N)"]
+        assert is_normal(BRACKET, "clabs", ce.terms["cl(M)"])
+        assert is_normal(BRACKET, "clabs", ce.terms["cl(N)"])
+    assert holds(check(BRACKET, "cl_sim", size=6)["cl_sim.normalize(cl)"])
+    # so not even up to conversion
+    assert values(smallest(BRACKET, "cl_join", size=5), "M") == values(ces, "M")
 
 
 def test_the_eta_clause_does_not_repair_it():
     # Hindley and Seldin 2008, chapter 9: with the clause [x].(P x) = P the example above is
     # simulated, but \x.(\y.x)x -> \x.x still is not: SKI and I are distinct weak normal forms.
-    vs = check(BRACKET, "cle_sim", size=6)
-    ce = vs["cle_sim"].counterexample
-    assert vs["cle_sim"].verdict == "refuted"
-    assert ce.size == 5
-    assert ce.terms["M"] == "lam(x.app(lam(y.x), x))"
-    assert ce.terms["cle(M)"] == "ap(ap(s, k), i)"
-    assert ce.terms["cle(N)"] == "i"
+    ces = smallest(BRACKET, "cle_sim", size=5)
+    assert ces[0].size == 5
+    assert ("lam(x.app(lam(y.x), x))", "ap(ap(s, k), i)", "i") in [
+        (c.terms["M"], c.terms["cle(M)"], c.terms["cle(N)"]) for c in ces]
     assert translate(BRACKET, "cle", "lam(x.app(lam(y.y), x))") == "i"
     assert holds(check(BRACKET, "cle_image", size=6)["cle_image"])
+
+
+def test_textbook_counterexample_on_the_command_line():
+    # The same answer through `calcscout check --json`, as a makefile would read it.
+    import json
+
+    from click.testing import CliRunner
+
+    from obligations.cli import cli
+
+    result = CliRunner().invoke(cli, ["check", str(LIBRARY / BRACKET), "cl_sim", "cl_sim_outside",
+                                      "--json", "-"])
+    assert result.exit_code == 1  # some claim refuted
+    report = json.loads(result.output)
+    by_name = {c["name"]: c for c in report["claims"]}
+    assert by_name["cl_sim"]["verdict"] == "refuted"
+    assert by_name["cl_sim"]["counterexample"]["terms"]["cl(M)"] == "ap(ap(s, ap(k, i)), i)"
+    assert by_name["cl_sim_outside"]["verdict"] == "holds"
 
 
 def test_weak_reduction_simulates_beta_outside_lambdas():
@@ -273,23 +306,28 @@ def test_anf_is_sound_for_cps_but_not_for_lambda_v():
     # lambda_v equations (Sabry and Felleisen, "Reasoning about programs in continuation-
     # passing style", LFP 1992: lambda_v proves less than the CPS image does).
     assert holds(check(ANF, "anf_sound_cps", size=6)["anf_sound_cps"])
-    v = check(ANF, "anf_sound_v", size=6)["anf_sound_v"]
-    assert v.verdict == "refuted"
-    assert v.counterexample.size == 5
-    assert v.counterexample.terms["M"] == "app(app(x, x), x)"
-    assert v.counterexample.terms["anf(M)"] == "let(app(x, x), y.app(y, x))"
+    ces = smallest(ANF, "anf_sound_v", size=5)
+    assert ces[0].size == 5
+    assert ("app(app(x, x), x)", "let(app(x, x), y.app(y, x))") in [
+        (c.terms["M"], c.terms["anf(M)"]) for c in ces]
 
 
 def test_anf_is_not_closed_under_beta_v():
     # Kennedy, "Compiling with continuations, continued", ICFP 2007: A-normal form is not
     # preserved by beta reduction (inlining a function whose body is a let under a let
     # gives a let in a let-bound position), so it must be re-normalised.
-    v = check(ANF, "anf_closed")["anf_closed"]
-    assert v.verdict == "refuted"
-    ce = v.counterexample
-    assert ce.size == 8
-    assert ce.terms["A"] == "let(app(lam(y.let(y, z.z)), x), y.y)"
-    assert ce.terms["B"] == "let(let(x, y.y), y.y)"
+    ces = smallest(ANF, "anf_closed")
+    assert ces[0].size == 8
+    for ce in ces:  # a beta_v step that leaves a let in a let-bound position
+        assert ce.details["premise_step"]["rule"] == "beta_v"
+        assert ce.terms["B"].startswith("let(let(")
+    # the case named above, directly
+    c = spec(ANF).calculi["lamc"]
+    a = parse_term(c, "let(app(lam(y.let(y, z.z)), x), w.w)")
+    assert grammar(c).member(a, "anf")
+    [step] = [r for r in reducts(c, a, "v") if r.rule == "beta_v"]
+    assert print_abstract(c, step.result) == "let(let(x, y.y), y.y)"
+    assert not grammar(c).member(step.result, "anf")
     # and nothing smaller is a counterexample
     assert holds(check(ANF, "anf_closed", size=7)["anf_closed"])
 
@@ -315,13 +353,10 @@ def test_shift_reset_reductions_are_cps_conversions():
 def test_shift_reset_reductions_are_not_cps_reductions():
     # Derived here: capturing the context builds \y. reset(F[y]), whose translation has
     # redexes that the translation of the redex does not produce; the two only join.
-    v = check(SHIFT, "sr_star", size=6)["sr_star"]
-    assert v.verdict == "refuted"
-    ce = v.counterexample
-    assert ce.size == 3
-    assert ce.terms["M"] == "reset(shift(x.x))"
-    assert ce.terms["N"] == "reset(lam(x.reset(x)))"
-    assert ce.details.get("joins") is True
+    ces = smallest(SHIFT, "sr_star", size=4)
+    assert [(c.size, c.terms["M"], c.terms["N"]) for c in ces] == [
+        (3, "reset(shift(x.x))", "reset(lam(x.reset(x)))")]
+    assert ces[0].details.get("joins") is True
 
 
 # ---------------------------------------------------------------- engine defects found here

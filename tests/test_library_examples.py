@@ -110,7 +110,8 @@ def test_cps_of_the_identity_is_plotkins():
 
 
 def test_cps_simulates_beta_v_by_beta_reduction():
-    # Plotkin 1975 proves that M = N in lambda_v implies [M] = [N] in lambda-beta; with his
+    # Plotkin 1975 proves that M = N in lambda_v implies [M] = [N] in the target (recalled
+    # from memory: beta, and eta only for eta_v, which lamv lacks); with his
     # substitution lemma [M[x := V]] = [M][x := Psi(V)] (exact, by induction) and the
     # compositionality of [.], every beta_v step M -> N gives [M] ->+ [N] by beta alone
     # (derived here, not quoted): the naive translation preserves reduction, only not step

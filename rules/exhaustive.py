@@ -74,6 +74,10 @@ def _useful(g: Grammar, rows: list[list], sorts: list[str], depth: int) -> list[
         # Give up looking deeper: report the column as possibly uncovered.
         return [Witness("", s) for s in sorts]
     first, rest = sorts[0], sorts[1:]
+    # A row that covers every column covers the whole vector (the base case of
+    # usefulness); without it a refinement row that keeps expanding would recurse forever.
+    if any(all(_covers_sort(g, e, s) for e, s in zip(r, sorts, strict=True)) for r in rows):
+        return None
     # All first entries wildcards for this column sort: skip the column.
     if all(_covers_sort(g, r[0], first) for r in rows):
         w = _useful(g, [r[1:] for r in rows], rest, depth)

@@ -34,19 +34,22 @@ from .errors import CalcError
 from .instantiate import build
 from .match import match
 from .rewrite import normal_forms, reduction_graph
-from .spec import Bounds, Calculus, Spec, Translation
-from .terms import Term
+from .spec import Bounds, Calculus, Pos, Spec, Translation
+from .terms import Term, is_internal
 
 MEMO_LIMIT = 500_000
 
 
 class TranslationFailure(CalcError):
-    """A translation function met a term that no equation matches (a missing case at run time)."""
+    """A translation function failed on a term at run time: no equation matches it (a missing
+    case), or an equation let a bound name escape."""
 
-    def __init__(self, tr: Translation, fn: str, term_text: str):
+    def __init__(self, tr: Translation, fn: str, term_text: str, why: str | None = None,
+                 hint: str | None = None, pos: Pos | None = None):
         super().__init__(
-            f"translation {tr.name}: no equation of {fn} matches {term_text}",
-            hint="the term may lie outside the parameter sort of "
+            f"translation {tr.name}: " + (why or f"no equation of {fn} matches {term_text}"),
+            pos,
+            hint=hint or "the term may lie outside the parameter sort of "
             f"{fn} ({tr.signatures[fn].params[0]}); add an equation or narrow the claim",
         )
         self.translation = tr
@@ -92,6 +95,8 @@ class Translator:
                 for p, v in zip(eq.extra, extra, strict=True):
                     binding[p.name] = v
                 result = build(self.target, eq.rhs, binding, self._call)
+                if result.free and any(is_internal(n) for n in result.free):
+                    self._check_escape(eq, term, result, avoid)
                 if len(self._memo) > MEMO_LIMIT:
                     self._memo.clear()
                 self._memo[key] = result
@@ -99,6 +104,20 @@ class Translator:
         from .notation import print_abstract
 
         raise TranslationFailure(self.tr, fn, print_abstract(self.source, term))
+
+    def _check_escape(self, eq, term: Term, result: Term, avoid: set[str]) -> None:
+        """A name this equation's match opened must not survive into its result."""
+        from .notation import print_abstract
+
+        outside = set(term.free) | avoid
+        escaped = [n for n in result.free if is_internal(n) and n not in outside]
+        if escaped:
+            raise TranslationFailure(
+                self.tr, eq.fn, print_abstract(self.source, term),
+                f"the equation at line {eq.pos.line} lets a bound name of "
+                f"{print_abstract(self.source, term)} escape into its result",
+                "translate the metavariable under a binder for that name again, or add "
+                "equations that map such names away", eq.pos)
 
     def _call(self, fn: str, args: Sequence[Term]) -> Term:
         return self.build(fn, args[0], args[1:])

@@ -218,6 +218,7 @@ class TranslationBuilder:
         rhs = self.rhs(e.rhs, scope, frozenset())
         if rhs is None:
             return None
+        self.check_binder_scopes(pattern, rhs)
         eq = Equation(e.fn, pattern, tuple(extra), rhs, e.pos)
         got = self.guaranteed(rhs, scope)
         if got is not None and sig.result not in got:
@@ -344,6 +345,34 @@ class TranslationBuilder:
             rest.append(p)
         return PCall(raw.name, (arg0, *rest), raw.pos)
 
+    def check_binder_scopes(self, pattern: Pattern, rhs: Pattern) -> None:
+        """A name bound in the pattern, used itself on the right (``f(lam(x.x)) = x``),
+        must stand under a binder for it there.
+
+        A metavariable matched under ``x.`` may be translated outside any binder
+        for ``x`` (``ds(klam(k.P)) = ds(P)`` drops a binder): while it is
+        translated, ``x`` is a name of its names sort like any other, which the
+        equations for names may map away.  If it reaches the result all the same,
+        :mod:`rules.translate` stops with an error naming the equation.
+        """
+        binder_names = _binder_names(pattern)
+
+        def walk(p: Pattern, above: frozenset[str]) -> None:
+            if isinstance(p, PCall):
+                for arg in p.args:
+                    walk(arg, above)
+            elif isinstance(p, PName):
+                if p.name in binder_names and p.name not in above:
+                    self.error(f"the name {p.name} is bound in the pattern but used here outside "
+                               "any binder for it", p.pos)
+            elif isinstance(p, PAbs):
+                walk(p.body, above | set(p.names))
+            elif isinstance(p, PCon):
+                for arg in p.args:
+                    walk(arg, above)
+
+        walk(rhs, frozenset())
+
     # ------------------------------------------------------------ sorts
 
     def guaranteed(self, p: Pattern, scope: RhsScope) -> State | None:
@@ -442,6 +471,21 @@ def _lhs_vars(p: Pattern, calc: Calculus) -> tuple[dict[str, str], dict[str, PMe
 
     walk(p)
     return names, metas
+
+
+def _binder_names(p: Pattern) -> set[str]:
+    out: set[str] = set()
+
+    def walk(q: Pattern) -> None:
+        if isinstance(q, PAbs):
+            out.update(q.names)
+            walk(q.body)
+        elif isinstance(q, PCon):
+            for a in q.args:
+                walk(a)
+
+    walk(p)
+    return out
 
 
 def _calls(p: Pattern) -> list[PCall]:

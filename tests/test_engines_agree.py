@@ -74,7 +74,7 @@ calculus c { names var x y
 
 APP = ["app(f(M), f(N))", "app(f(N), f(M))", "app(f(M), f(M))", "pair(f(M), f(N))",
        "app(f(N), f(N))"]
-LAM = ["lam(x. f(M))", "lam(y. f(M))", "lam(x. app(x, f(M)))"]
+LAM = ["lam(x. f(M))", "lam(x. pair(x, f(M)))", "lam(x. app(x, f(M)))"]
 PAIR = ["pair(f(M), f(N))", "pair(f(N), f(M))", "app(f(M), f(N))"]
 
 

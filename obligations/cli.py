@@ -373,6 +373,32 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
             click.echo(f"     instance {inst['peak']} -> {inst['left']} / {inst['right']}")
 
 
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("claim_name", metavar="CLAIM")
+@size_option
+@steps_option
+@names_option
+@click.option("-o", "out_dir", required=True, metavar="DIR", help="Folder for the .smt2 files.")
+def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None:
+    """Write one SMT-LIB 2.6 file per obligation of CLAIM, for any solver.
+
+    Each file's header says what sat and unsat mean for the claim; a solver's
+    model is turned back into the counterexample's terms by
+    `calcscout explain --model SOLVER_OUTPUT FILE.smt2`.
+    """
+    from encoders.smtlib import export_obligations
+
+    spec = load(file)
+    claim = next((c for c in spec.claims if c.name == claim_name), None)
+    if claim is None:
+        raise UsageError(f"no claim {claim_name} in {spec.file}",
+                         hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
+    b = spec.effective_bounds(Bounds(size=size, steps=steps, names=names), claim.within)
+    for path in export_obligations(spec, claim, b, out_dir):
+        click.echo(str(path))
+
+
 # ---------------------------------------------------------------- merge and explain
 
 

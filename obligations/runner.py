@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rules.enumerate import count_tuples
+from rules.errors import EncodingError
 from rules.spec import Bounds, Claim, Spec
 from rules.translate import TranslationFailure
 
@@ -76,16 +77,36 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             tr = spec.translations[ob.normalizes]
             obs.append({**base, "kind": "normalize", "translation": tr.name,
                         "group": tr.normalize})
+        elif bounded.is_relational(ob) and _engine(spec, ob, opts) == "smt":
+            from .smt_engine import run_smt
+
+            v = run_smt(spec, ob, b, opts.timeout)
+            v.seconds = time.perf_counter() - start
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
         elif bounded.is_relational(ob):
             parts = _run_relational(spec, ob, b, opts)
             obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts]})
         else:
+            if opts.engine == "smt":
+                raise EncodingError(f"claim {claim.name}: {ob.text} is a rewriting question the "
+                                    "SMT engine does not take", claim.pos,
+                                    hint="use --engine enum or auto for confluent and terminating")
             v = _run_rewriting(spec, ob, b, opts)
             v.seconds = time.perf_counter() - start
             obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
     return {"claim": claim.name, "file": claim.file, "formula": claim.text,
             "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
             "shard": list(opts.shard) if opts.shard else None}
+
+
+def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
+    """The engine for one relational obligation: enumeration unless smt or auto says otherwise
+    (the rule of auto is in obligations/smt_engine.py)."""
+    if opts.engine == "enum":
+        return "enum"
+    from .smt_engine import choose_engine
+
+    return choose_engine(ob, opts.engine, spec)
 
 
 def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None

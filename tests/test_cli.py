@@ -206,3 +206,28 @@ def test_reduce_refuses_a_term_outside_every_sort(capsys) -> None:
     # num takes a digit, and x is a name of sort var: num(x) is in no sort of arith
     code, _, err = run(capsys, "reduce", EVERY, "arith", "num(x)")
     assert code == 2 and "not a term of calculus arith" in err
+
+
+def test_engine_choice_is_reported_per_claim(capsys) -> None:
+    cps = str(DATA / "smt" / "cps.calc")
+    code, out, _ = run(capsys, "check", cps, "back", "sim", "--engine", "auto", "--size", "5",
+                       "--json", "-")
+    entries = {c["name"]: c for c in json.loads(out)["claims"]}
+    assert code == 0
+    assert entries["back"]["engine"] == "smt"  # an exact equation: the solver decides it
+    assert entries["sim"]["engine"] == "enum"  # ->* needs reduction paths
+    code, _, err = run(capsys, "check", BASICS, "flip_back", "--engine", "smt", "--size", "4")
+    assert code == 0
+    code, _, err = run(capsys, "check", str(DATA / "conformance" / "every-construct.calc"),
+                       "base", "--engine", "smt")
+    assert code == 2 and "SMT engine does not take" in err
+
+
+def test_export_writes_smtlib_files(capsys, tmp_path) -> None:
+    code, out, _ = run(capsys, "export", str(DATA / "smt" / "cps.calc"), "back", "--size", "6",
+                       "-o", str(tmp_path))
+    assert code == 0
+    paths = [Path(p) for p in out.split()]
+    assert paths and all(p.suffix == ".smt2" and p.exists() for p in paths)
+    text = paths[0].read_text()
+    assert "(set-logic" in text and "(check-sat)" in text and "; unsat:" in text

@@ -2,30 +2,17 @@
 
 from __future__ import annotations
 
-import json
 from typing import Any
 
 from rules.errors import UsageError
 
+from .explain import load_report
 from .report import json_report
 from .runner import finish_claim
 
 
-def _read(path: str) -> dict[str, Any]:
-    try:
-        with open(path, encoding="utf-8") as f:
-            data = json.load(f)
-    except json.JSONDecodeError as e:
-        raise UsageError(f"{path} is not a JSON report ({e.msg} at line {e.lineno})") from None
-    except OSError as e:
-        raise UsageError(f"cannot read {path}: {e.strerror}") from None
-    if not isinstance(data, dict) or "claims" not in data:
-        raise UsageError(f"{path} is not a calcscout report")
-    return data
-
-
 def merge_reports(paths: list[str]) -> dict[str, Any]:
-    reports = [(p, _read(p)) for p in paths]
+    reports = [(p, load_report(p)) for p in paths]
     sharded = [(p, r) for p, r in reports if r.get("shard")]
     if len(sharded) != len(reports):
         plain = next(p for p, r in reports if not r.get("shard"))

@@ -21,12 +21,29 @@ from .spec import (
     PPlug,
     PSubst,
     Rule,
+    Shape,
     base_meta,
 )
 from .syntax import RawArg, RawPattern, RawRule
 
 if TYPE_CHECKING:
     from .load import Loader
+
+
+def shape_problem(raw: RawPattern, shape: Shape) -> tuple[str, Pos, str | None] | None:
+    """Why ``c(args)`` as written does not fit the constructor's shape (message, place, hint)."""
+    n = shape.arity
+    if len(raw.args) != n:
+        return (f"constructor {raw.name} takes {n} argument{'s' if n != 1 else ''}, here "
+                f"{len(raw.args)}", raw.pos, None)
+    for i, (a, bsorts) in enumerate(zip(raw.args, shape.binder_sorts, strict=True)):
+        if len(a.binders) != len(bsorts):
+            k = len(bsorts)
+            hint = f"write it as {'.'.join(['x'] * k)}.M" if k else "write it without a binder"
+            return (f"argument {i + 1} of {raw.name} binds {k} name{'s' if k != 1 else ''}, "
+                    f"here {len(a.binders)}",
+                    a.binders[0][1] if a.binders else a.pattern.pos, hint)
+    return None
 
 
 class PatternResolver:
@@ -115,19 +132,12 @@ class PatternResolver:
             self.error(f"unknown constructor {raw.name} in calculus {self.calc.name}", raw.pos,
                        hint=self.suggest(raw.name))
             return None
-        if len(raw.args) != shape.arity:
-            self.error(f"constructor {raw.name} takes {shape.arity} argument"
-                       f"{'s' if shape.arity != 1 else ''}, here {len(raw.args)}", raw.pos)
+        problem = shape_problem(raw, shape)
+        if problem is not None:
+            self.error(*problem)
             return None
         args: list[Pattern] = []
-        for i, (a, bsorts) in enumerate(zip(raw.args, shape.binder_sorts, strict=True)):
-            if len(a.binders) != len(bsorts):
-                self.error(f"argument {i + 1} of {raw.name} binds {len(bsorts)} name"
-                           f"{'s' if len(bsorts) != 1 else ''}, here {len(a.binders)}",
-                           a.binders[0][1] if a.binders else a.pattern.pos,
-                           hint=f"write it as {'.'.join(['x'] * len(bsorts))}.M" if bsorts
-                           else None)
-                return None
+        for a, bsorts in zip(raw.args, shape.binder_sorts, strict=True):
             got = self.abstraction(a, bsorts, side)
             if got is None:
                 return None

@@ -13,7 +13,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 from .exhaustive import describe, missing_case
-from .patterns import PatternResolver
+from .patterns import PatternResolver, shape_problem
 from .sorts import State, grammar
 from .spec import (
     Calculus,
@@ -284,16 +284,12 @@ class TranslationBuilder:
                        f"{self.dst.name})", raw.pos,
                        hint=self.loader.suggest(raw.name, [*self.sigs, *self.dst.shapes]))
             return None
-        if len(raw.args) != shape.arity:
-            self.error(f"constructor {raw.name} takes {shape.arity} argument(s), here "
-                       f"{len(raw.args)}", raw.pos)
+        problem = shape_problem(raw, shape)
+        if problem is not None:
+            self.error(*problem)
             return None
         args: list[Pattern] = []
-        for i, (a, bsorts) in enumerate(zip(raw.args, shape.binder_sorts, strict=True)):
-            if len(a.binders) != len(bsorts):
-                self.error(f"argument {i + 1} of {raw.name} binds {len(bsorts)} name(s), here "
-                           f"{len(a.binders)}", a.pattern.pos)
-                return None
+        for a in raw.args:
             names = tuple(b for b, _ in a.binders)
             body = self.rhs(a.pattern, scope, binders | set(names))
             if body is None:

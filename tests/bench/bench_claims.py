@@ -37,7 +37,7 @@ def main() -> None:
         spec = load_file(path)
     lamv = spec.calculi["lamv"]
     print(f"{'size':>4} {'cases':>8} {'claims/s':>9} {'cases/s':>9} {'us/case':>8} "
-          f"{'enum%':>6} {'transl%':>8} {'graph%':>7} {'peak MiB':>9}")
+          f"{'enum%':>6} {'transl%':>8} {'graph%':>7} {'maxrss MiB':>10}")
     for size in (5, 6, 7, 8):
         b = Bounds(size=size, names=1, steps=10, nodes=2000)
         t0 = time.perf_counter()

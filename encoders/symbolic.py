@@ -182,6 +182,8 @@ class Store:
         got = self._table.get(key)
         if got is None:
             got = self._table[key] = SNode(con, args, bn)
+            if not len(self._table) & 0xFFFF:  # every 65,536 new nodes: cheap, and in time
+                self.check_budget()
         return got  # type: ignore[return-value]
 
     def choice(self, guards: Sequence, branches: Sequence[Sym]) -> Sym:

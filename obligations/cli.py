@@ -394,7 +394,7 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
     if claim is None:
         raise UsageError(f"no claim {claim_name} in {spec.file}",
                          hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
-    b = spec.effective_bounds(Bounds(size=size, steps=steps, names=names), claim.within)
+    b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
     for path in export_obligations(spec, claim, b, out_dir):
         click.echo(str(path))
 

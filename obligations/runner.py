@@ -41,7 +41,7 @@ class RunOptions:
 
 
 def claim_bounds(spec: Spec, claim: Claim, opts: RunOptions) -> Bounds:
-    return spec.effective_bounds(opts.bounds, claim.within)
+    return spec.claim_bounds(claim, opts.bounds)
 
 
 def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions

@@ -145,8 +145,10 @@ class Loader:
                 if c.name in seen:
                     self.error(f"claim {c.name} is declared twice", c.pos)
                 seen.add(c.name)
+        file_bounds = {f.path: self.bounds(f.bounds) for f in self.files[1:]}
+        file_bounds[top_file.path] = bounds
         return Spec(self.shown(self.top) if self.top else "", calculi, translations,
-                    tuple(claims), bounds, tuple(f.path for f in self.files))
+                    tuple(claims), bounds, tuple(f.path for f in self.files), file_bounds)
 
     def bounds(self, items: list[tuple[str, int, Pos]]) -> Bounds:
         values: dict[str, int] = {}

@@ -442,6 +442,7 @@ class Spec:
     claims: tuple[Claim, ...]
     bounds: Bounds = Bounds()  # the file's `bounds` line (over the defaults)
     files: tuple[str, ...] = ()
+    file_bounds: dict[str, Bounds] = field(default_factory=dict)  # each file's `bounds` line
 
     def effective_bounds(self, *layers: Bounds) -> Bounds:
         """Command line over ``within`` over the file over the defaults: pass the
@@ -450,6 +451,12 @@ class Spec:
         for layer in reversed(layers):
             b = layer.over(b)
         return b
+
+    def claim_bounds(self, claim: Claim, command_line: Bounds = Bounds()) -> Bounds:
+        """A claim's bounds: command line over its `within` over the `bounds` line of the file
+        it was written in (an included file's own) over the defaults."""
+        own = self.file_bounds.get(claim.file, self.bounds)
+        return command_line.over(claim.within.over(own.over(DEFAULT_BOUNDS)))
 
     def functions_named(self, fn: str) -> list[tuple[Translation, str]]:
         """Where a claim's ``fn(...)`` can point: (translation, function) pairs.

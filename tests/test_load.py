@@ -173,3 +173,18 @@ def test_bounds_precedence_command_line_within_file_defaults() -> None:
     assert filed.effective_bounds(Bounds(size=9, names=0), claim.within) == Bounds(9, 2, 0, 7)
     with pytest.raises(CalcError, match="unknown bound 'depth'"):
         load_text(base + "bounds depth 3")
+
+
+def test_an_included_files_claims_keep_that_files_bounds(tmp_path: Path) -> None:
+    from rules.spec import Bounds
+
+    (tmp_path / "base.calc").write_text(
+        "calculus b { names var x\n sort term M ::= x | s(M) }\n"
+        "bounds size 3\nclaim inner: M ->* M\n")
+    (tmp_path / "top.calc").write_text('include "base.calc"\nbounds size 9, steps 4\n'
+                                       "claim outer: for M in b.term: M ->* M\n")
+    spec = load_file(tmp_path / "top.calc")
+    claims = {c.name: c for c in spec.claims}
+    assert spec.claim_bounds(claims["inner"]) == Bounds(3, 10, 1, 20000)
+    assert spec.claim_bounds(claims["outer"]) == Bounds(9, 4, 1, 20000)
+    assert spec.claim_bounds(claims["inner"], Bounds(size=5)).size == 5

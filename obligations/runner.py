@@ -165,8 +165,6 @@ def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions
         total = count_tuples(slots, b.size, b.names)
         if opts.shard is not None:
             total = -(-total // opts.shard[1])
-        if opts.jobs > 1:
-            total = -(-total // opts.jobs)
 
         def progress(done: int, _name=ob.name, _total=total) -> None:
             opts.progress(_name, done, _total)  # type: ignore[misc]
@@ -176,21 +174,35 @@ def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions
     shards = _subshards(opts.shard, opts.jobs)
     ctx = multiprocessing.get_context("fork")
     global _WORK
-    _WORK = (spec, ob, b, opts.collect_all)
+    done = ctx.Value("q", 0)  # values decided, summed over the workers, for the progress line
+    _WORK = (spec, ob, b, opts.collect_all, done)
     try:
         with ctx.Pool(opts.jobs) as pool:
-            return pool.map(_work, shards)
+            result = pool.map_async(_work, shards)
+            while not result.ready():
+                result.wait(0.2)
+                if progress is not None:
+                    progress(done.value)
+            return result.get()
     finally:
         _WORK = None
 
 
-_WORK: tuple | None = None
+_WORK: tuple | None = None  # what the forked workers inherit: spec, obligation, bounds, ...
 
 
 def _work(shard: tuple[int, int]) -> bounded.Partial:
     assert _WORK is not None
-    spec, ob, b, collect_all = _WORK
-    return bounded.run_shard(spec, ob, b, shard, collect_all)
+    spec, ob, b, collect_all, done = _WORK
+    seen = 0
+
+    def count(tried: int) -> None:
+        nonlocal seen
+        with done.get_lock():
+            done.value += tried - seen
+        seen = tried
+
+    return bounded.run_shard(spec, ob, b, shard, collect_all, count)
 
 
 def _subshards(shard: tuple[int, int] | None, jobs: int) -> list[tuple[int, int]]:

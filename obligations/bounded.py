@@ -25,13 +25,13 @@ from typing import Any
 
 from rules.enumerate import count_tuples, enumerate_tuples
 from rules.notation import parse_term, print_abstract
-from rules.rewrite import paused_gc, reaches, reduction_graph
-from rules.spec import Atom, Bounds, Confluent, Implies, Spec, Terminating
+from rules.rewrite import paused_gc, reaches, reduction_graph, reducts
+from rules.spec import Atom, Bounds, Calculus, Confluent, Implies, Spec, Terminating
 from rules.terms import Term
 from rules.translate import Undefined
 
 from .claims import Obligation
-from .evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome
+from .evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome, search
 from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
 
 ALL_LIMIT = 10
@@ -130,7 +130,7 @@ def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Ato
         for trn, (code, undefined) in ev.case_norm.items():
             part.normalize.setdefault(trn, []).append([index, code])
             if code == 2 and trn not in part.several:
-                part.several[trn] = _several_example(spec, trn, index, undefined)
+                part.several[trn] = _several_example(spec, trn, index, undefined, bounds)
         if outcome.status == UNDECIDED:
             part.undecided.append((index, outcome.cut_by or "steps"))
             if part.example is None:
@@ -170,12 +170,32 @@ def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
     return Outcome(OK), env, None, {}
 
 
-def _several_example(spec: Spec, trn: str, index: int, u: Undefined | None) -> dict[str, Any]:
-    calc = spec.calculi[spec.translations[trn].target]
+def _several_example(spec: Spec, trn: str, index: int, u: Undefined | None,
+                     bounds: Bounds) -> dict[str, Any]:
+    tr = spec.translations[trn]
+    calc = spec.calculi[tr.target]
     assert u is not None
+    _recheck_normal_forms(calc, tr.normalize, u, bounds)
     return {"index": index, "term": print_abstract(calc, u.built),
             "normal_forms": [print_abstract(calc, t) for t in u.normal_forms[:4]],
             "size": u.built.size, "cycles": u.cut_by == "cycle"}
+
+
+def _recheck_normal_forms(calc: Calculus, group: str | None, u: Undefined, bounds: Bounds) -> None:
+    """Before a normalisation is reported undefined: each normal form it names is one, is
+    distinct, and is reached from the built term by the early-exit search (not the graph
+    builder that found it)."""
+    assert bounds.steps is not None and bounds.nodes is not None
+    if u.reason == "several-normal-forms":
+        ok = len(set(u.normal_forms)) >= 2 and all(
+            not reducts(calc, t, group) and
+            search(calc, u.built, t, bounds.steps, bounds.nodes, group).found
+            for t in u.normal_forms[:4])
+    else:  # a complete graph without a normal form: no reachable term is normal
+        r = search(calc, u.built, u.built, bounds.steps, bounds.nodes, group, plus=True)
+        ok = r.complete and not r.normal_forms
+    if not ok:
+        raise InternalError(f"re-check: the normalisation of {u.built!r} is not undefined")
 
 
 # ---------------------------------------------------------------- counterexamples

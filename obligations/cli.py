@@ -109,8 +109,10 @@ def terms(file: str, sort: str, size: int | None, names: int | None, count: bool
 
     spec = load(file)
     if "." not in sort:
+        example = next((f"{c.name}.{n}" for c in spec.calculi.values()
+                        for n, x in c.sorts.items() if not x.is_context), "CALC.SORT")
         raise UsageError(f"give the sort as CALC.SORT, not {sort!r}",
-                         hint=f"for example {next(iter(spec.calculi), 'lam')}.term")
+                         hint=f"for example {example}")
     cname, sname = sort.split(".", 1)
     calc = calculus(spec, cname)
     s = calc.sorts.get(sname)

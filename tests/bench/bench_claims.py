@@ -38,6 +38,7 @@ def main() -> None:
     lamv = spec.calculi["lamv"]
     print(f"{'size':>4} {'cases':>8} {'claims/s':>9} {'cases/s':>9} {'us/case':>8} "
           f"{'enum%':>6} {'transl%':>8} {'graph%':>7} {'maxrss MiB':>10}")
+    per_node: list[tuple[int, float, float]] = []
     for size in (5, 6, 7, 8):
         b = Bounds(size=size, names=1, steps=10, nodes=2000)
         t0 = time.perf_counter()
@@ -47,9 +48,11 @@ def main() -> None:
         t_enum = time.perf_counter() - t0
         t0 = time.perf_counter()
         tr = Translator(spec, spec.translations["cbv"], b)
+        out_nodes = 0
         for t in enumerate_terms(lamv, "term", size, 1):
-            tr.apply("cbv", t)
+            out_nodes += tr.apply("cbv", t).size
         t_transl = time.perf_counter() - t0 - t_enum
+        per_node.append((size, 1e9 * max(t_transl, 0.0) / out_nodes, out_nodes / terms))
         t0 = time.perf_counter()
         verdicts, _ = run_claims(spec, list(spec.claims), RunOptions(bounds=b))
         total = time.perf_counter() - t0
@@ -63,6 +66,9 @@ def main() -> None:
         print(f"{size:>4} {cases:>8} {len(verdicts) / total:>9.2f} {cases / total:>9.0f} "
               f"{1e6 * total / cases:>8.1f} {100 * enum_share:>5.1f}% {100 * transl_share:>7.1f}% "
               f"{100 * graph_share:>6.1f}% {peak / 2**20:>10.0f}")
+    print("translation cost per node of output (should stay flat):")
+    for size, ns, avg in per_node:
+        print(f"  size {size}: {ns:.0f} ns per output node (cbv(M) has {avg:.1f} nodes on average)")
     b = Bounds(size=8, names=1, steps=10, nodes=2000)
     times = {}
     for jobs in (1, 2):

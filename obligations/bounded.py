@@ -23,10 +23,10 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.enumerate import count_tuples, enumerate_tuples
+from rules.enumerate import enumerate_tuples
 from rules.notation import parse_term, print_abstract
-from rules.rewrite import paused_gc, reaches, reduction_graph, reducts
-from rules.spec import Atom, Bounds, Calculus, Confluent, Implies, Spec, Terminating
+from rules.rewrite import paused_gc, position_text, reaches, reduction_graph, reducts
+from rules.spec import Atom, Bounds, Calculus, Implies, Spec
 from rules.terms import Term
 from rules.translate import Undefined
 
@@ -58,7 +58,6 @@ class Partial:
     undecided: list[tuple[int, str]] = field(default_factory=list)  # (index, bound)
     premise_cut: int = 0
     seconds: float = 0.0
-    total: int = 0
     # translation -> [[case index, 0 fine | 1 cut | 2 several normal forms], ...]
     normalize: dict[str, list[list[int]]] = field(default_factory=dict)
     # translation -> the smallest-index case where the group had several normal forms
@@ -71,7 +70,7 @@ class Partial:
                 "failures": [{"index": f.index, "counterexample": f.counterexample.to_json()}
                              for f in self.failures],
                 "undecided": [list(u) for u in self.undecided], "premise_cut": self.premise_cut,
-                "seconds": self.seconds, "total": self.total, "normalize": self.normalize,
+                "seconds": self.seconds, "normalize": self.normalize,
                 "several": self.several,
                 "collect_all": self.collect_all,
                 "example": ({"index": self.example.index,
@@ -84,7 +83,7 @@ class Partial:
                    [Failure(f["index"], Counterexample.from_json(f["counterexample"]))
                     for f in d["failures"]],
                    [(u[0], u[1]) for u in d["undecided"]], d["premise_cut"], d["seconds"],
-                   d.get("total", 0), d.get("normalize", {}), d.get("several", {}),
+                   d.get("normalize", {}), d.get("several", {}),
                    d.get("collect_all", False),
                    Failure(d["example"]["index"],
                            Counterexample.from_json(d["example"]["counterexample"]))
@@ -104,7 +103,6 @@ def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int]
     slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
     assert bounds.size is not None and bounds.names is not None
     part = Partial(ob.name, collect_all=collect_all)
-    part.total = count_tuples(slots, bounds.size, bounds.names)
     i0, n = (shard[0] - 1, shard[1]) if shard else (0, 1)
     stream = enumerate_tuples(slots, bounds.size, bounds.names, shard=shard)
     with paused_gc():
@@ -219,29 +217,21 @@ def build_counterexample(spec: Spec, ob: Obligation, ev: Evaluator, env: dict[st
         rel = f.premise.relation
         assert rel is not None
         if rule:
-            where = ".".join(str(i) for i in pos) if pos else "root"
+            where = position_text(pos)
             details["premise_step"] = {"rule": rule, "position": where}
             evidence = (f"{f.premise.left.name} {rel.kind} {nname} (first step by rule {rule} at "
                         f"position {where}); " + evidence)
-    for key, value in seen.items():
+    for key, (calc_name, value) in seen.items():
         if key in terms:
             continue
-        calc_name = _calc_of_call(spec, ob, key)
-        calc = spec.calculi[calc_name] if calc_name else None
+        calc = spec.calculi[calc_name]
         if isinstance(value, Undefined):
             why = ("several normal forms" if value.reason == "several-normal-forms"
                    else f"no normal form within the bound on {value.cut_by}")
-            built = print_abstract(calc, value.built) if calc else "?"
-            terms[key] = f"undefined: {built} has {why}"
+            terms[key] = f"undefined: {print_abstract(calc, value.built)} has {why}"
         else:
-            terms[key] = print_abstract(calc, value) if calc else str(value)
+            terms[key] = print_abstract(calc, value)
     return Counterexample(size, terms, evidence, details)
-
-
-def _calc_of_call(spec: Spec, ob: Obligation, text: str) -> str | None:
-    fn = text.split("(", 1)[0]
-    options = spec.functions_named(fn)
-    return options[0][0].target if options else None
 
 
 def recheck(spec: Spec, ob: Obligation, bounds: Bounds, env: dict[str, Term],
@@ -267,18 +257,16 @@ def recheck(spec: Spec, ob: Obligation, bounds: Bounds, env: dict[str, Term],
         m = fresh_env[f.premise.left.name]
         n = fresh_env[f.premise.right.name]  # type: ignore[union-attr]
         rel = f.premise.relation
-        assert rel is not None
+        assert rel is not None and bounds.steps is not None and bounds.nodes is not None
         calc = spec.calculi[rel.calculus or f.premise.left.calculus]
-        assert bounds.steps is not None and bounds.nodes is not None
-        if rel.kind in ("->", "->=", "->+") or m is not n:
-            g = reduction_graph(calc, m, bounds.steps, bounds.nodes, rel.group)
-            path = reaches(g, n)
-            ok = path is not None and (rel.kind in ("->*", "->+") or len(path) == 2 or
-                                       (rel.kind == "->=" and len(path) <= 2))
-            if rel.kind == "->=" and m is n:
-                ok = True
-            if not ok:
-                raise InternalError("re-check: the premise's N is not generated by M")
+        if rel.kind in ("->", "->="):
+            ok = (rel.kind == "->=" and m is n) or any(
+                s.result is n for s in reducts(calc, m, rel.group))
+        else:
+            ok = search(calc, m, n, bounds.steps, bounds.nodes, rel.group,
+                        plus=rel.kind == "->+").found
+        if not ok:
+            raise InternalError("re-check: the premise's N is not generated by M")
         atom = f.conclusion
     else:
         atom = f
@@ -416,7 +404,3 @@ def first_failure(parts: list[Partial], collect_all: bool) -> int | None:
 
 def is_relational(ob: Obligation) -> bool:
     return isinstance(ob.formula, Atom | Implies)
-
-
-def is_rewriting(ob: Obligation) -> bool:
-    return isinstance(ob.formula, Confluent | Terminating) and ob.normalizes is None

@@ -22,7 +22,6 @@ from dataclasses import dataclass
 from rules.spec import (
     Atom,
     Claim,
-    Confluent,
     ECall,
     EMeta,
     Expr,
@@ -148,8 +147,3 @@ def _normalize_part(spec: Spec, claim: Claim, tr: Translation) -> Obligation:
                       tr.normalize), (), text, f"normalize({tr.name})", normalizes=tr.name)
 
 
-def formula_text(o: Obligation) -> str:
-    return o.text
-
-
-__all__ = ["Obligation", "Plan", "plan", "Confluent", "Terminating"]

@@ -5,6 +5,7 @@ from __future__ import annotations
 import networkx as nx
 
 from rules.notation import print_term
+from rules.rewrite import position_text
 from rules.spec import Calculus
 
 
@@ -33,8 +34,7 @@ def graph_to_dot(calc: Calculus, graph: nx.DiGraph, highlight: set | None = None
             attrs.append("style=filled, fillcolor=lightgrey")
         lines.append(f"  {ids[t]} [{', '.join(attrs)}];")
     for a, b, data in graph.edges(data=True):
-        pos = data.get("position", ())
-        where = ".".join(str(i) for i in pos) if pos else "root"
+        where = position_text(data.get("position", ()))
         label = _quote(f"{data.get('rule', '')} @ {where}")
         lines.append(f"  {ids[a]} -> {ids[b]} [label={label}];")
     lines.append("}")

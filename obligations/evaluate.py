@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rules.notation import print_abstract
-from rules.rewrite import join, reducts
+from rules.rewrite import join, position_text, reduction_graph, reducts
 from rules.sorts import grammar
 from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
 from rules.terms import Node, Term, name, open_body
@@ -129,16 +129,15 @@ def first_difference(calc: Calculus, a: Term, b: Term) -> tuple[tuple[int, ...],
         return tuple(pos), a, b
 
 
-def position_text(pos: tuple[int, ...]) -> str:
-    return ".".join(str(i) for i in pos) if pos else "root"
+Seen = dict[str, tuple[str, "Term | Undefined"]]  # call as written -> (calculus, value)
 
 
 class Evaluator:
     """Evaluates the expressions and atoms of one claim's cases.
 
     One translator per translation, shared across cases, so translations are
-    memoised per interned term.  ``fresh=True`` builds new translators with
-    empty memo tables (used to re-check a counterexample independently).
+    memoised per interned term; a new Evaluator starts with empty memo tables
+    (the re-check of a counterexample uses one).
     """
 
     def __init__(self, spec: Spec, bounds: Bounds):
@@ -149,6 +148,7 @@ class Evaluator:
         # 3 cut by nodes, 2 definitely undefined: several normal forms, or none at all in a
         # complete graph), and the Undefined behind it; reset by the engine before each case
         self.case_norm: dict[str, tuple[int, Undefined | None]] = {}
+        self._texts: dict[int, str] = {}  # id of an expression of the claim -> its text
 
     def translator(self, name: str) -> Translator:
         t = self.translators.get(name)
@@ -158,15 +158,21 @@ class Evaluator:
         return t
 
     def text(self, e: Expr) -> str:
-        if isinstance(e, EMeta):
-            return e.name
-        tr = self.spec.translations[e.translation]
-        fn = e.translation if e.fn == tr.entry else e.fn
-        return f"{fn}({', '.join(self.text(a) for a in e.args)})"
+        """``cps(M)``: an expression as the claim writes it (asked once per call and case)."""
+        got = self._texts.get(id(e))
+        if got is None:
+            if isinstance(e, EMeta):
+                got = e.name
+            else:
+                tr = self.spec.translations[e.translation]
+                fn = e.translation if e.fn == tr.entry else e.fn
+                got = f"{fn}({', '.join(self.text(a) for a in e.args)})"
+            self._texts[id(e)] = got
+        return got
 
-    def value(self, e: Expr, env: dict[str, Term], seen: dict[str, Term | Undefined]
-              ) -> Term | Undefined:
-        """The value of ``e``; every call's value is also recorded in ``seen`` by its text."""
+    def value(self, e: Expr, env: dict[str, Term], seen: Seen) -> Term | Undefined:
+        """The value of ``e``; every call's value is also recorded in ``seen``, by its text,
+        with the calculus it is a term of."""
         if isinstance(e, EMeta):
             return env[e.name]
         args = []
@@ -185,7 +191,7 @@ class Evaluator:
             old = self.case_norm.get(tr.tr.name)
             if old is None or (code == 2) > (old[0] == 2) or (old[0] == 0 and code):
                 self.case_norm[tr.tr.name] = (code, v if isinstance(v, Undefined) else None)
-        seen[self.text(e)] = v
+        seen[self.text(e)] = (e.calculus, v)
         return v
 
     def calc(self, name: str) -> Calculus:
@@ -193,8 +199,7 @@ class Evaluator:
 
     # ------------------------------------------------------------ atoms
 
-    def decide(self, atom: Atom, env: dict[str, Term], seen: dict[str, Term | Undefined]
-               ) -> Outcome:
+    def decide(self, atom: Atom, env: dict[str, Term], seen: Seen) -> Outcome:
         left = self.value(atom.left, env, seen)
         if isinstance(left, Undefined):
             return self._undefined(atom.left, left)
@@ -222,7 +227,7 @@ class Evaluator:
         assert rel is not None
         b = self.bounds
         assert b.steps is not None and b.nodes is not None
-        calc_name = rel.calculus or (atom.left.calculus if hasattr(atom.left, "calculus") else "")
+        calc_name = rel.calculus or atom.left.calculus
         lt, rt = self.text(atom.left), self.text(atom.right) if atom.right else ""
         if rel.kind == "==":
             if left is right:
@@ -304,7 +309,7 @@ class Evaluator:
                              "cut the search)", "joins": None}
 
     def _membership_details(self, calc: Calculus, t: Term, sort: str) -> dict:
-        """The smallest subterm that is outside every sort its position allows."""
+        """The sorts the term does belong to (its state in the sort automaton)."""
         g = grammar(calc)
         state = sorted(g.state(t))
         return {"sorts_of_term": state}
@@ -326,26 +331,12 @@ class Evaluator:
             return
         b = self.bounds
         assert b.steps is not None and b.nodes is not None
-        seen = {m: 0}
-        todo: deque[Term] = deque([m])
-        if rel.kind == "->*":
-            yield m, "", ()
-        emitted = {m} if rel.kind == "->*" else set()
-        while todo:
-            t = todo.popleft()
-            if seen[t] >= b.steps:
-                if reducts(calc, t, rel.group):
-                    self.premise_cut = "steps"
-                continue
-            for s in reducts(calc, t, rel.group):
-                r = s.result
-                if r not in emitted:
-                    emitted.add(r)
-                    yield r, s.rule, s.position
-                if r in seen:
-                    continue
-                if len(seen) >= b.nodes:
-                    self.premise_cut = "nodes"
-                    continue
-                seen[r] = seen[t] + 1
-                todo.append(r)
+        g = reduction_graph(calc, m, b.steps, b.nodes, rel.group)
+        self.premise_cut = g.graph["cut_by"]
+        for n in g.nodes:  # insertion order: breadth first
+            into = list(g.in_edges(n, data=True))
+            if n is m and rel.kind == "->*":
+                yield m, "", ()
+            elif into:  # for ->+, M itself only where a cycle leads back to it
+                _, _, e = min(into, key=lambda x: g.nodes[x[0]]["depth"])
+                yield n, e["rule"], e["position"]

@@ -30,6 +30,7 @@ from .spec import (
     Terminating,
     Translation,
     base_meta,
+    functions_named,
 )
 from .syntax import RawAtom, RawClaim, RawExpr
 
@@ -152,7 +153,7 @@ class ClaimResolver:
         return None
 
     def function(self, e: RawExpr) -> tuple[Translation, str]:
-        options = self.loader_functions(e.name)
+        options = functions_named(self.translations, e.name)
         if not options:
             hint = self.loader.suggest(e.name, [f for t in self.translations.values()
                                                 for f in t.signatures] + list(self.translations))
@@ -162,12 +163,6 @@ class ClaimResolver:
             self.fail(f"the function {e.name} is defined by several translations ({names})",
                       e.pos, hint="call it through a translation's own name, or rename it")
         return options[0]
-
-    def loader_functions(self, fn: str) -> list[tuple[Translation, str]]:
-        tr = self.translations.get(fn)
-        if tr is not None:
-            return [(tr, tr.entry)]
-        return [(t, fn) for t in self.translations.values() if fn in t.signatures]
 
     # ------------------------------------------------------------ inference
 

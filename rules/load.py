@@ -82,8 +82,7 @@ class Loader:
              where: Pos | None = None) -> None:
         real = path.resolve()
         if real in stack:
-            names = [self.shown_short(p) for p in stack[stack.index(real):]] + [
-                self.shown_short(real)]
+            names = [p.name for p in stack[stack.index(real):]] + [real.name]
             self.error("include cycle: " + " -> ".join(names), where,
                        hint="remove one of the includes; each file is read once")
             return
@@ -105,9 +104,6 @@ class Loader:
         self.files.append(raw)
         for inc, pos in raw.includes:
             self.read(path.parent / inc, [*stack, real], where=Pos(pos.file, pos.line, 1))
-
-    def shown_short(self, p: Path) -> str:
-        return p.name
 
     # ------------------------------------------------------------ resolution
 
@@ -402,7 +398,7 @@ class CalculusBuilder:
             self.shape_pos[alt.name] = alt.pos
         elif known.binders != shape.binders:
             self.error(f"constructor {alt.name} used with another shape "
-                       f"({describe_shape(known)} declared, {describe_given(shape)} given)",
+                       f"({describe_shape(known)} declared, {describe_shape(shape, noun=False)} given)",
                        alt.pos)
             return None
         notation = self.notation(alt, args) if alt.notation else None
@@ -448,19 +444,12 @@ class CalculusBuilder:
                         f"that is a context metavariable (it has {len(holes)})", alt.pos)
 
 
-def describe_shape(shape: Shape) -> str:
-    words = ["no", "one", "two", "three", "four", "five", "six"]
-    n = shape.arity
-    count = words[n] if n < len(words) else str(n)
-    text = f"{count} argument{'s' if n != 1 else ''}"
-    binds = [f"argument {i + 1} binds {k}" for i, k in enumerate(shape.binders) if k]
-    return text + (" (" + ", ".join(binds) + ")" if binds else "")
-
-
-def describe_given(shape: Shape) -> str:
-    """``one``, ``two`` ...: the shape given, in the words of the declared one."""
-    words = ["none", "one", "two", "three", "four", "five", "six"]
+def describe_shape(shape: Shape, noun: bool = True) -> str:
+    """``two arguments (argument 1 binds 1)``; without the noun (``one``), for the shape given."""
+    words = ["no" if noun else "none", "one", "two", "three", "four", "five", "six"]
     n = shape.arity
     text = words[n] if n < len(words) else str(n)
+    if noun:
+        text += f" argument{'s' if n != 1 else ''}"
     binds = [f"argument {i + 1} binds {k}" for i, k in enumerate(shape.binders) if k]
     return text + (" (" + ", ".join(binds) + ")" if binds else "")

@@ -432,6 +432,19 @@ class Claim:
     pos: Pos = _pos()
 
 
+def functions_named(translations: dict[str, Translation], fn: str
+                    ) -> list[tuple[Translation, str]]:
+    """Where a claim's ``fn(...)`` can point: (translation, function) pairs.
+
+    A translation's own name means its entry function and wins; otherwise
+    every translation that defines a function ``fn``.
+    """
+    tr = translations.get(fn)
+    if tr is not None:
+        return [(tr, tr.entry)]
+    return [(t, fn) for t in translations.values() if fn in t.signatures]
+
+
 @dataclass(frozen=True)
 class Spec:
     """Everything one rule file and its includes declare."""
@@ -459,15 +472,7 @@ class Spec:
         return command_line.over(claim.within.over(own.over(DEFAULT_BOUNDS)))
 
     def functions_named(self, fn: str) -> list[tuple[Translation, str]]:
-        """Where a claim's ``fn(...)`` can point: (translation, function) pairs.
-
-        A translation's own name means its entry function and wins; otherwise
-        every translation that defines a function ``fn``.
-        """
-        tr = self.translations.get(fn)
-        if tr is not None:
-            return [(tr, tr.entry)]
-        return [(t, fn) for t in self.translations.values() if fn in t.signatures]
+        return functions_named(self.translations, fn)
 
     def is_empty(self) -> bool:
         return not (self.calculi or self.translations or self.claims)

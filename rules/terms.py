@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import sys
 import weakref
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 
 sys.setrecursionlimit(max(sys.getrecursionlimit(), 20000))
 
@@ -276,19 +276,6 @@ def subterms(t: Term) -> Iterable[tuple[tuple[int, ...], Term]]:
         if isinstance(s, Node):
             for i in range(len(s.args) - 1, -1, -1):
                 stack.append(((*pos, i), s.args[i]))
-
-
-def at_position(t: Term, pos: Sequence[int]) -> Term:
-    for i in pos:
-        assert isinstance(t, Node)
-        t = t.args[i]
-    return t
-
-
-def map_terms(t: Term, leaf: Callable[[Term], Term]) -> Term:
-    if isinstance(t, Node):
-        return node(t.con, [map_terms(a, leaf) for a in t.args], t.binders)
-    return leaf(t)
 
 
 def debug_str(t: Term) -> str:

@@ -10,6 +10,7 @@ of each function are exhaustive.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 from .exhaustive import describe, missing_case
@@ -29,7 +30,7 @@ from .spec import (
     Translation,
     base_meta,
 )
-from .syntax import RawArg, RawPattern, RawTranslation
+from .syntax import RawPattern, RawTranslation
 
 if TYPE_CHECKING:
     from .load import Loader
@@ -214,13 +215,13 @@ class TranslationBuilder:
                 return None
             extra.append(PMeta(a.pattern.name, sort, a.pattern.pos))
         lhs_names, lhs_metas = _lhs_vars(pattern, self.src)
-        scope = RhsScope(lhs_names, lhs_metas, {m.name: m for m in extra}, pattern)
+        scope = RhsScope(lhs_names, lhs_metas, {m.name: m for m in extra})
         rhs = self.rhs(e.rhs, scope, frozenset())
         if rhs is None:
             return None
         self.check_binder_scopes(pattern, rhs)
         eq = Equation(e.fn, pattern, tuple(extra), rhs, e.pos)
-        got = self.guaranteed(rhs, scope)
+        got = self.guaranteed(rhs)
         if got is not None and sig.result not in got:
             self.error(f"the right-hand side of {e.fn} is not always a term of sort "
                        f"{sig.result} of {self.dst.name}", e.rhs.pos,
@@ -334,7 +335,7 @@ class TranslationBuilder:
             p = self.rhs(a.pattern, scope, binders)
             if p is None:
                 return None
-            got = self.guaranteed(p, scope)
+            got = self.guaranteed(p)
             if got is not None and sort not in got:
                 self.error(f"the argument {a.pattern.text()} of {raw.name} is not always a term "
                            f"of sort {sort}", a.pattern.pos)
@@ -371,7 +372,7 @@ class TranslationBuilder:
 
     # ------------------------------------------------------------ sorts
 
-    def guaranteed(self, p: Pattern, scope: RhsScope) -> State | None:
+    def guaranteed(self, p: Pattern) -> State | None:
         """The target sorts every instance of ``p`` belongs to."""
         g = grammar(self.dst)
         if isinstance(p, PCall):
@@ -381,11 +382,11 @@ class TranslationBuilder:
         if isinstance(p, PName):
             return g.names_state.get(p.names_sort, frozenset())
         if isinstance(p, PAbs):
-            return self.guaranteed(p.body, scope)
+            return self.guaranteed(p.body)
         if isinstance(p, PCon):
             children = []
             for a in p.args:
-                got = self.guaranteed(a, scope)
+                got = self.guaranteed(a)
                 if got is None:
                     return None
                 children.append(got)
@@ -436,13 +437,14 @@ class TranslationBuilder:
                            hint=f"add an equation {fn}({describe(w, g)}) = ...")
 
 
+@dataclass(frozen=True)
 class RhsScope:
-    def __init__(self, names: dict[str, str], metas: dict[str, PMeta], extra: dict[str, PMeta],
-                 pattern: Pattern):
-        self.names = names
-        self.metas = metas
-        self.extra = extra
-        self.pattern = pattern
+    """What an equation's right-hand side may use: the pattern's names (with their names
+    sorts) and metavariables, and the extra parameters."""
+
+    names: dict[str, str]
+    metas: dict[str, PMeta]
+    extra: dict[str, PMeta]
 
 
 def _lhs_vars(p: Pattern, calc: Calculus) -> tuple[dict[str, str], dict[str, PMeta]]:
@@ -501,5 +503,3 @@ def _calls(p: Pattern) -> list[PCall]:
     walk(p)
     return out
 
-
-__all__ = ["build_translations", "RawArg"]

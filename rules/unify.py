@@ -39,6 +39,7 @@ import itertools
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
+from .match import binder_sorts
 from .sorts import EMPTY, Grammar, State, grammar
 from .spec import Calculus, PAbs, Pattern, PCon, PMeta, PName, Rule, base_meta
 
@@ -209,11 +210,7 @@ class _Problem:
         self.bound_by.append(x)
 
     def binder_sorts(self, con: str, i: int, k: int) -> tuple[str, ...]:
-        shape = self.calc.shapes.get(con)
-        if shape is not None and i < shape.arity and len(shape.binder_sorts[i]) == k:
-            return shape.binder_sorts[i]
-        first = next(iter(self.calc.names_sorts), "")
-        return (first,) * k
+        return binder_sorts(self.calc, con, i, k)
 
     def restricted(self, y: str, keep: Sequence[int]) -> str:
         """A new metavariable seeing only positions ``keep`` of ``y``'s scope;
@@ -486,7 +483,7 @@ def from_pattern(
         elif isinstance(p, PCon):
             for i, a in enumerate(p.args):
                 if isinstance(a, PAbs):
-                    bs = _binder_sorts(calc, p.con, i, len(a.names))
+                    bs = binder_sorts(calc, p.con, i, len(a.names))
                     for n, ns in zip(a.names, bs, strict=True):
                         binder_sort.setdefault(n, ns)
                     walk(a.body, env + a.names)
@@ -549,14 +546,6 @@ def _shown(n: str) -> str:
 
 def _last(env: tuple[str, ...], n: str) -> int:
     return len(env) - 1 - env[::-1].index(n)
-
-
-def _binder_sorts(calc: Calculus, con: str, i: int, k: int) -> tuple[str, ...]:
-    shape = calc.shapes.get(con)
-    if shape is not None and i < shape.arity and len(shape.binder_sorts[i]) == k:
-        return shape.binder_sorts[i]
-    first = next(iter(calc.names_sorts), "")
-    return (first,) * k
 
 
 def _metas_of(p: Pattern) -> list[str]:

@@ -120,3 +120,17 @@ def _no_smaller_case_fails(spec, size: int, fails) -> None:
     lam = spec.calculi["lam"]
     for (m,) in enumerate_tuples([(lam, "term")], size - 1, 1):
         assert not fails(m)
+
+
+def test_a_premise_step_that_loops_back_is_rechecked_as_a_step() -> None:
+    # M -> N with N = M (a rule whose reduct is its redex): the counterexample's premise is
+    # re-checked by one-step reducts, not by a shortest path (which would be empty)
+    from rules.parse import load_text
+
+    spec = load_text("calculus c { names var x\n sort val V ::= x\n sort term M N ::= V | f(M)\n"
+                     " rule loop: f(M) -> f(M) }\n"
+                     "claim k: for M, N in c.term: M -> N implies N : val\n")
+    out, _ = run_claims(spec, list(spec.claims), RunOptions())
+    v = out[0]
+    assert v.verdict == "refuted"
+    assert v.counterexample.terms["M"] == v.counterexample.terms["N"] == "f(x)"

@@ -150,10 +150,8 @@ def test_cps_image_grammar_is_wider_than_the_image():
 
 
 def test_cps_and_ds_are_not_a_galois_connection_on_lambda_v():
-    # Sabry and Wadler, "A reflection on call-by-value", TOPLAS 1997, obtain a Galois
-    # connection (a reflection) with Moggi's computational lambda calculus as the source and
-    # the target restricted to the CPS language.  With lambda_v and the whole target, as
-    # here, the source half holds and the target half fails (derived here).
+    # Computed here: with lambda_v and the whole target, the source half holds and the
+    # target half fails on target terms that are no CPS term.
     vs = check(PLOTKIN, "cps_gc", size=6)
     assert vs["cps_gc"].verdict == "refuted"
     assert holds(vs["cps_gc.mono(F)"])
@@ -345,9 +343,8 @@ def test_shift_reset_cps_of_reset():
 
 
 def test_shift_reset_reductions_are_cps_conversions():
-    # Danvy and Filinski 1990, and Kameyama and Hasegawa, "A sound and complete
-    # axiomatization of delimited continuations", ICFP 2003 (soundness of the CPS
-    # translation): the translations of a redex and of its reduct are beta-convertible.
+    # Danvy and Filinski 1990 (soundness of the CPS translation): the translations of a
+    # redex and of its reduct are beta-convertible.
     assert holds(check(SHIFT, "sr_join", size=5)["sr_join"])
 
 

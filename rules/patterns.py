@@ -237,6 +237,12 @@ class PatternResolver:
             if p.name not in bound and p.name not in allowed:
                 self.error(f"the name {p.name} on the right is bound neither by the left nor "
                            "by a binder around it", p.pos)
+            elif escaping := scopes.get(p.name, frozenset()) - allowed:
+                x = sorted(escaping)[0]
+                self.error(f"the name {p.name} may be bound by the binder {x}. on the left but "
+                           "is used here outside it", p.pos,
+                           hint=f"use {p.name} only under a binder {x}. on the right, or match "
+                           "it outside every binder on the left too")
             return
         if isinstance(p, PAbs):
             self.check_rhs(p.body, bound, scopes, conditions, allowed | set(p.names))
@@ -296,20 +302,32 @@ class PatternResolver:
 def lhs_bindings(lhs: Pattern) -> tuple[dict[str, Pattern], dict[str, frozenset[str]]]:
     """What a left-hand side binds, and for each metavariable the binder names above it.
 
+    For a name, its entry holds the binder names above every one of its occurrences
+    (a binder's own name is under itself): a name used on the right outside them
+    could carry a bound name out of its binder.
+
     The key ``E[]`` records the names bound above the hole's position... of a
     plugged context: none that the pattern can name, so it stays empty.
     """
     bound: dict[str, Pattern] = {}
     scopes: dict[str, frozenset[str]] = {}
 
+    def name_at(n: str, above: frozenset[str]) -> None:
+        # A name is outside a binder only if one occurrence is: matching does not
+        # keep name metavariables apart, so one seen only under binders may be bound.
+        scopes[n] = scopes[n] & above if n in scopes else above
+
     def walk(p: Pattern, above: frozenset[str]) -> None:
         if isinstance(p, PMeta | PName):
             bound.setdefault(p.name, p)
             if isinstance(p, PMeta):
                 scopes[p.name] = scopes.get(p.name, frozenset()) | above
+            else:
+                name_at(p.name, above)
         elif isinstance(p, PAbs):
             for n in p.names:
                 bound.setdefault(n, PName(n, "", p.pos))
+                name_at(n, above | set(p.names))
             walk(p.body, above | set(p.names))
         elif isinstance(p, PCon):
             for a in p.args:

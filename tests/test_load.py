@@ -188,3 +188,11 @@ def test_an_included_files_claims_keep_that_files_bounds(tmp_path: Path) -> None
     assert spec.claim_bounds(claims["inner"]) == Bounds(3, 10, 1, 20000)
     assert spec.claim_bounds(claims["outer"]) == Bounds(9, 4, 1, 20000)
     assert spec.claim_bounds(claims["inner"], Bounds(size=5)).size == 5
+
+
+def test_a_name_matched_outside_every_binder_may_be_returned() -> None:
+    # Issue 8, item 2: bound names that escape are refused at load time (the bad files
+    # rule-bound-name-escapes and rule-name-under-binder-escapes); a name the left also
+    # matches outside every binder is free in the redex, so returning it is accepted.
+    spec = load_file(DATA / "rule-free-name-kept.calc")
+    assert not spec.is_empty()

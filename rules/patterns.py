@@ -325,10 +325,11 @@ def lhs_bindings(lhs: Pattern) -> tuple[dict[str, Pattern], dict[str, frozenset[
             else:
                 name_at(p.name, above)
         elif isinstance(p, PAbs):
+            inside = above | set(p.names)
             for n in p.names:
                 bound.setdefault(n, PName(n, "", p.pos))
-                name_at(n, above | set(p.names))
-            walk(p.body, above | set(p.names))
+                name_at(n, inside)
+            walk(p.body, inside)
         elif isinstance(p, PCon):
             for a in p.args:
                 walk(a, above)

@@ -24,7 +24,7 @@ from __future__ import annotations
 import z3
 
 from rules.errors import EncodingError
-from rules.spec import Atom, Bounds, Calculus, ECall, EMeta, Expr, Implies, Spec
+from rules.spec import Atom, Bounds, Calculus, ECall, EMeta, ESubst, Expr, Implies, Spec
 
 from .slots import Universe
 from .symbolic import Store, Sym, evaluate, f_and, f_not, f_or, to_term
@@ -67,6 +67,10 @@ def encodable(spec: Spec, formula) -> tuple[bool, str]:
 
 
 def _expr_ok(spec: Spec, e: Expr | None) -> tuple[bool, str]:
+    if isinstance(e, ESubst):
+        return False, "substitutions in claims are left to enumeration"
+    if isinstance(e, EMeta) and e.sort in spec.calculi[e.calculus].names_sorts:
+        return False, "a metavariable over names is left to enumeration"
     if isinstance(e, ECall):
         tr = spec.translations[e.translation]
         if tr.normalize is not None:

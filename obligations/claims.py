@@ -24,6 +24,7 @@ from rules.spec import (
     Claim,
     ECall,
     EMeta,
+    ESubst,
     Expr,
     Formula,
     Implies,
@@ -77,6 +78,10 @@ def _translations_in(f: Formula) -> list[str]:
     out: list[str] = []
 
     def expr(e: Expr | None) -> None:
+        if isinstance(e, ESubst):
+            expr(e.body)
+            for _, v in e.pairs:
+                expr(v)
         if isinstance(e, ECall):
             if e.translation not in out:
                 out.append(e.translation)

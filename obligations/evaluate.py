@@ -18,8 +18,8 @@ from typing import Any
 from rules.notation import print_abstract
 from rules.rewrite import join, position_text, reduction_graph, reducts
 from rules.sorts import grammar
-from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
-from rules.terms import Node, Term, name, open_body
+from rules.spec import Atom, Bounds, Calculus, EMeta, ESubst, Expr, Relation, Spec
+from rules.terms import Name, Node, Term, name, open_body, substitute
 from rules.translate import Translator, Undefined
 
 OK = "ok"
@@ -163,6 +163,9 @@ class Evaluator:
         if got is None:
             if isinstance(e, EMeta):
                 got = e.name
+            elif isinstance(e, ESubst):
+                pairs = ", ".join(f"{x.name} := {self.text(v)}" for x, v in e.pairs)
+                got = f"{self.text(e.body)}[{pairs}]"
             else:
                 tr = self.spec.translations[e.translation]
                 fn = e.translation if e.fn == tr.entry else e.fn
@@ -175,6 +178,8 @@ class Evaluator:
         with the calculus it is a term of."""
         if isinstance(e, EMeta):
             return env[e.name]
+        if isinstance(e, ESubst):
+            return self.substituted(e, env, seen)
         args = []
         for a in e.args:
             v = self.value(a, env, seen)
@@ -193,6 +198,23 @@ class Evaluator:
                 self.case_norm[tr.tr.name] = (code, v if isinstance(v, Undefined) else None)
         seen[self.text(e)] = (e.calculus, v)
         return v
+
+    def substituted(self, e: ESubst, env: dict[str, Term], seen: Seen) -> Term | Undefined:
+        """``A[x := B]``: capture-avoiding substitution of the values for the names."""
+        body = self.value(e.body, env, seen)
+        if isinstance(body, Undefined):
+            return body
+        mapping: dict[str, Term] = {}
+        for x, v in e.pairs:
+            value = self.value(v, env, seen)
+            if isinstance(value, Undefined):
+                return value
+            n = env[x.name]
+            assert isinstance(n, Name)
+            mapping[n.name] = value
+        out = substitute(body, mapping)
+        seen[self.text(e)] = (e.calculus, out)
+        return out
 
     def calc(self, name: str) -> Calculus:
         return self.spec.calculi[name]

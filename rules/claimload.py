@@ -22,6 +22,7 @@ from .spec import (
     ECall,
     EMeta,
     Expr,
+    ESubst,
     Formula,
     Implies,
     Pos,
@@ -32,7 +33,7 @@ from .spec import (
     base_meta,
     functions_named,
 )
-from .syntax import RawAtom, RawClaim, RawExpr
+from .syntax import RawAtom, RawClaim, RawExpr, RawSubst
 
 if TYPE_CHECKING:
     from .load import Loader
@@ -60,6 +61,58 @@ def resolve_claims(raws: list[RawClaim], calculi: dict[str, Calculus],
             continue
         out.append(claim)
     return out
+
+
+def check_needs(claims: list[Claim], files: list[str], loader: Loader) -> None:
+    """`needs L`: ``L`` is a lemma declared before the claim (file order, an included
+    file before the file that includes it), and no lemmas need each other in a cycle."""
+    rank = {f: i for i, f in enumerate(reversed(files))}
+
+    def order(c: Claim) -> tuple[int, int, int]:
+        return (rank.get(c.file, len(rank)), c.pos.line, c.pos.column)
+
+    by_name = {c.name: c for c in claims}
+    for c in claims:
+        for n in c.needs:
+            target = by_name.get(n)
+            if target is None:
+                loader.error(f"claim {c.name} needs {n}, which is not declared", c.pos,
+                             hint=loader.suggest(n, [d.name for d in claims if d.lemma]))
+            elif not target.lemma:
+                loader.error(f"claim {c.name} needs {n}, which is a claim, not a lemma",
+                             c.pos, hint=f"declare it with `lemma {n}: ...`")
+    graph = {c.name: [n for n in c.needs if n in by_name] for c in claims}
+    reported: set[str] = set()
+    for start in graph:
+        cycle = _cycle_from(start, graph)
+        if cycle and not reported & set(cycle):
+            reported |= set(cycle)
+            first = by_name[cycle[0]]
+            loader.error("lemmas need each other in a cycle: " + " -> ".join(cycle + [cycle[0]]),
+                         first.pos, hint="a lemma may need only lemmas proved before it")
+    for c in claims:
+        for n in c.needs:
+            target = by_name.get(n)
+            if target is not None and target.lemma and n not in reported and (
+                    order(target) >= order(c)):
+                loader.error(f"claim {c.name} needs lemma {n}, which is declared after it "
+                             f"(at {target.pos})", c.pos,
+                             hint=f"move lemma {n} before {c.name}")
+
+
+def _cycle_from(start: str, graph: dict[str, list[str]]) -> list[str] | None:
+    """A cycle through ``start`` in the needs graph, as the list of its members."""
+    stack = [(start, [start])]
+    seen: set[str] = set()
+    while stack:
+        node, path = stack.pop()
+        for nxt in graph.get(node, ()):
+            if nxt == start:
+                return path
+            if nxt not in seen:
+                seen.add(nxt)
+                stack.append((nxt, [*path, nxt]))
+    return None
 
 
 class ClaimResolver:
@@ -125,7 +178,8 @@ class ClaimResolver:
             for name in order:
                 c, s = self.known[name]
                 quantified.append(EMeta(name, c, s))
-        return Claim(raw.name, formula, tuple(quantified), raw.text, within, raw.file, raw.pos)
+        return Claim(raw.name, formula, tuple(quantified), raw.text, within, raw.file, raw.pos,
+                     raw.lemma, tuple(n for n, _ in raw.needs))
 
     # ------------------------------------------------------------ lookups
 
@@ -173,7 +227,7 @@ class ClaimResolver:
                       f"(here {what})", a.pos)
         assert a.right is not None
         for side in (a.left, a.right):
-            if side.args is not None:
+            if side.args is not None or isinstance(side, RawSubst):
                 self.fail("a premise relates two metavariables (M -> N); here "
                           f"{side.text()}", side.pos,
                           hint="translate in the conclusion: M -> N implies F(M) ->* F(N)")
@@ -183,7 +237,10 @@ class ClaimResolver:
     def infer(self, atoms: list[RawAtom]) -> None:
         learnt: dict[str, set[tuple[str, str]]] = {}
 
-        def learn(e: RawExpr, calc: str, sort: str) -> None:
+        def learn(e: RawExpr | RawSubst, calc: str, sort: str) -> None:
+            if isinstance(e, RawSubst):
+                learn(e.body, calc, sort)
+                return
             if e.args is None:
                 if e.name in self.declared:
                     return
@@ -200,7 +257,7 @@ class ClaimResolver:
 
         for a in atoms:
             for e in (a.left, a.right):
-                if e is not None and e.args is not None:
+                if e is not None and (e.args is not None or isinstance(e, RawSubst)):
                     learn(e, "", "")
         for name, options in learnt.items():
             calcs = {c for c, _ in options}
@@ -213,8 +270,8 @@ class ClaimResolver:
             self.known[name] = (calc, sorts[0])
         # metavariables no function settled: relation qualifiers, then a unique declaring calculus
         for a in atoms:
-            for e in (a.left, a.right):
-                if e is None or e.args is not None or e.name in self.known:
+            for e in _bare(a.left, a.right):
+                if e.name in self.known:
                     continue
                 if a.relation is not None and a.relation[1] is not None:
                     c = self.calculus(a.relation[1][0], a.relation[2])
@@ -228,9 +285,10 @@ class ClaimResolver:
                     if s is not None:
                         self.known[e.name] = (c.name, s)
                         continue
+        self.infer_substitutions(atoms)
         for a in atoms:
-            for e in (a.left, a.right):
-                if e is None or e.args is not None or e.name in self.known:
+            for e in _bare(a.left, a.right):
+                if e.name in self.known:
                     continue
                 if a is atoms[0] and self.raw.kind == "implies" and e is a.right:
                     continue  # generated from the premise's left
@@ -244,9 +302,44 @@ class ClaimResolver:
                 self.fail(f"cannot tell which calculus {e.name} ranges over: {where}", e.pos,
                           hint=f"say it outright: `for {e.name} in CALC.SORT:`")
 
+    def infer_substitutions(self, atoms: list[RawAtom]) -> None:
+        """In ``A[x := B]``, ``x`` is a names metavariable of ``A``'s calculus and ``B`` a
+        term of that calculus (its sort from its own name)."""
+        for a in atoms:
+            for sub in _substitutions(a.left, a.right):
+                calc_name = self.calculus_of(sub.body)
+                if calc_name is None:
+                    continue
+                calc = self.calculi[calc_name]
+                for x, xpos, value in sub.pairs:
+                    owner = calc.metas.get(x) or calc.metas.get(base_meta(x))
+                    if owner not in calc.names_sorts:
+                        what = (f"a metavariable of sort {owner}" if owner else
+                                "not a metavariable of it")
+                        self.fail(f"a substitution replaces a names metavariable of {calc.name}; "
+                                  f"{x} is {what}", xpos,
+                                  hint="write A[x := B] with x declared by a `names` line")
+                    self.known.setdefault(x, (calc.name, owner))
+                    for v in _bare(value):
+                        if v.name not in self.known:
+                            vs = self.meta_sort(calc, v.name)
+                            if vs is not None:
+                                self.known[v.name] = (calc.name, vs)
+
+    def calculus_of(self, e: RawExpr | RawSubst) -> str | None:
+        if isinstance(e, RawSubst):
+            return self.calculus_of(e.body)
+        if e.args is None:
+            got = self.known.get(e.name)
+            return got[0] if got else None
+        tr, fn = self.function(e)
+        return tr.target
+
     # ------------------------------------------------------------ building
 
-    def expr(self, e: RawExpr) -> Expr:
+    def expr(self, e: RawExpr | RawSubst) -> Expr:
+        if isinstance(e, RawSubst):
+            return self.substitution(e)
         if e.args is None:
             if e.name not in self.known:
                 self.fail(f"cannot tell which calculus {e.name} ranges over", e.pos,
@@ -269,6 +362,32 @@ class ClaimResolver:
                           "has none", a.pos)
             args.append(got)
         return ECall(tr.name, fn, tuple(args), tr.target, sig.result, e.pos)
+
+    def substitution(self, e: RawSubst) -> ESubst:
+        body = self.expr(e.body)
+        calc = self.calculi[body.calculus]
+        g = grammar(calc)
+        pairs = []
+        seen: set[str] = set()
+        for x, xpos, raw_value in e.pairs:
+            c, ns = self.known[x]
+            if x in seen:
+                self.fail(f"{x} is substituted twice in one substitution", xpos)
+            seen.add(x)
+            value = self.expr(raw_value)
+            if value.calculus != calc.name:
+                self.fail(f"{raw_value.text()} is a term of {value.calculus}, but {x} is a name of "
+                          f"{calc.name}", raw_value.pos)
+            if value.sort in calc.names_sorts:
+                fits = value.sort == ns
+            else:
+                fits = any(g.overlap(value.sort, s) for s in g.names_state.get(ns, ()))
+            if not fits:
+                self.fail(f"{raw_value.text()} (sort {value.sort}) cannot stand where a name of "
+                          f"{ns} stands in {calc.name}", raw_value.pos,
+                          hint=f"substitute a term of a sort that contains the names of {ns}")
+            pairs.append((EMeta(x, c, ns, xpos), value))
+        return ESubst(body, tuple(pairs), e.pos)
 
     def atom(self, a: RawAtom) -> Atom:
         left = self.expr(a.left)
@@ -337,7 +456,9 @@ def _mentions(raw: RawClaim, names: set[str] | frozenset[str]) -> bool:
     if not names:
         return False
 
-    def expr(e: RawExpr | None) -> bool:
+    def expr(e: RawExpr | RawSubst | None) -> bool:
+        if isinstance(e, RawSubst):
+            return expr(e.body) or any(expr(v) for _, _, v in e.pairs)
         if e is None or e.args is None:
             return e is not None and e.name in names
         return e.name in names or any(expr(a) for a in e.args)
@@ -345,7 +466,37 @@ def _mentions(raw: RawClaim, names: set[str] | frozenset[str]) -> bool:
     return any(expr(a.left) or expr(a.right) for a in raw.atoms)
 
 
-def _metas_in(e: RawExpr) -> list[str]:
+def _metas_in(e: RawExpr | RawSubst) -> list[str]:
+    """The metavariables of ``e`` in order of occurrence (a substituted name after its body)."""
+    if isinstance(e, RawSubst):
+        out = _metas_in(e.body)
+        for x, _, v in e.pairs:
+            out.append(x)
+            out.extend(_metas_in(v))
+        return out
     if e.args is None:
         return [e.name]
     return [m for a in e.args for m in _metas_in(a)]
+
+
+def _bare(*exprs: RawExpr | RawSubst | None) -> list[RawExpr]:
+    """The bare identifiers (metavariables) standing in ``exprs``, calls' arguments
+    excluded (functions settle those) but substitutions' bodies and values included."""
+    out: list[RawExpr] = []
+    for e in exprs:
+        if isinstance(e, RawSubst):
+            out.extend(_bare(e.body, *(v for _, _, v in e.pairs)))
+        elif e is not None and e.args is None:
+            out.append(e)
+    return out
+
+
+def _substitutions(*exprs: RawExpr | RawSubst | None) -> list[RawSubst]:
+    out: list[RawSubst] = []
+    for e in exprs:
+        if isinstance(e, RawSubst):
+            out.append(e)
+            out.extend(_substitutions(e.body, *(v for _, _, v in e.pairs)))
+        elif e is not None and e.args:
+            out.extend(_substitutions(*e.args))
+    return out

@@ -375,6 +375,10 @@ class _Enum:
     # ------------------------------------------------------------ grammar side
 
     def sort_class(self, sort: str) -> tuple[int, ...]:
+        """The class of a sort's states; a names sort (a claim's ``x`` in ``M[x := V]``)
+        is the class ``(-1 - i,)``, whose only terms are names of its ``i``-th names sort."""
+        if sort in self.calc.names_sorts:
+            return (-1 - self.ns_names.index(sort),)
         if sort not in self.g.sort_names:
             kind = "a context sort" if sort in self.calc.sorts else "not a sort"
             raise ValueError(f"{sort} is {kind} of calculus {self.calc.name}")
@@ -404,6 +408,9 @@ class _Enum:
     def klass(self, cls: tuple[int, ...]) -> _Class:
         got = self._classes.get(cls)
         if got is not None:
+            return got
+        if cls and cls[0] < 0:  # the names of one names sort
+            got = self._classes[cls] = _Class((-1 - cls[0],), (), ())
             return got
         members = {self.states[i] for i in cls}
         names = tuple(i for i, q in enumerate(self.ns_state) if q and q in members)

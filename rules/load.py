@@ -12,7 +12,7 @@ import os
 from pathlib import Path
 
 from . import syntax
-from .claimload import resolve_claims
+from .claimload import check_needs, resolve_claims
 from .errors import FileError, Problem
 from .patterns import PatternResolver
 from .spec import (
@@ -134,6 +134,7 @@ class Loader:
         broken = set(raw_trs) - set(translations)  # their errors are reported already
         claims = resolve_claims([c for f in self.files for c in f.claims], calculi,
                                 translations, self, broken)
+        check_needs(claims, [f.path for f in self.files], self)
         names = {c.name for c in claims}
         if len(names) != len(claims):
             seen: set[str] = set()

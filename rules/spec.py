@@ -352,7 +352,25 @@ class ECall:
     pos: Pos = _pos()
 
 
-Expr = Union[EMeta, ECall]
+@dataclass(frozen=True)
+class ESubst:
+    """``A[x := B, y := C]`` in a claim: simultaneous capture-avoiding substitution for
+    the names metavariables ``x``, ``y`` (quantified over names) in the value of ``A``."""
+
+    body: Expr
+    pairs: tuple[tuple[EMeta, Expr], ...]
+    pos: Pos = _pos()
+
+    @property
+    def calculus(self) -> str:
+        return self.body.calculus
+
+    @property
+    def sort(self) -> str:
+        return self.body.sort
+
+
+Expr = Union[EMeta, ECall, ESubst]
 
 
 @dataclass(frozen=True)
@@ -430,6 +448,8 @@ class Claim:
     within: Bounds = Bounds()
     file: str = ""
     pos: Pos = _pos()
+    lemma: bool = False  # a `lemma` item: a claim that later proofs may use
+    needs: tuple[str, ...] = ()  # the lemmas it names with `needs`
 
 
 def functions_named(translations: dict[str, Translation], fn: str

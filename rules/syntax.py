@@ -147,6 +147,21 @@ class RawExpr:
 
 
 @dataclass
+class RawSubst:
+    """``A[x := B, ...]`` in a claim: a substitution for names metavariables."""
+
+    body: RawExpr | RawSubst
+    pairs: list[tuple[str, Pos, RawExpr | RawSubst]]
+    pos: Pos
+    name: str = ""  # never a metavariable or a function: see ``args``
+    args: None = None
+
+    def text(self) -> str:
+        pairs = ", ".join(f"{x} := {v.text()}" for x, _, v in self.pairs)
+        return f"{self.body.text()}[{pairs}]"
+
+
+@dataclass
 class RawAtom:
     left: RawExpr
     pos: Pos
@@ -166,6 +181,8 @@ class RawClaim:
     text: str
     file: str
     pos: Pos
+    lemma: bool = False
+    needs: list[tuple[str, Pos]] = field(default_factory=list)
 
 
 @dataclass
@@ -477,7 +494,11 @@ class _Builder:
         return (str(a), str(b) if b else None, self.pos(a))
 
     def claim(self, t: Tree) -> RawClaim:
-        _, name, forc, body, _, *within = t.children
+        kw, name, forc, body, _, *rest = t.children
+        within = [b for b in rest if isinstance(b, Tree) and b.data == "bound"]
+        needs = [(str(n), self.pos(n)) for b in rest if isinstance(b, Tree) and b.data == "needs"
+                 for n in b.children if isinstance(n, Token) and n.type == "IDENT"]
+        lemma = str(kw) == "lemma"
         quants = []
         if forc is not None:
             for g in forc.children:
@@ -493,10 +514,12 @@ class _Builder:
             first, _, second = body.children
             atoms = [self.atom(first)] + ([self.atom(second)] if second is not None else [])
             kind = "implies" if second is not None else "atom"
-            return RawClaim(str(name), quants, kind, atoms, None, bounds, text, self.path, pos)
+            return RawClaim(str(name), quants, kind, atoms, None, bounds, text, self.path, pos,
+                            lemma, needs)
         kind = "confluent" if body.data == "b_confluent" else "terminating"
         subject = self.qualified(body.children[1])
-        return RawClaim(str(name), quants, kind, [], subject, bounds, text, self.path, pos)
+        return RawClaim(str(name), quants, kind, [], subject, bounds, text, self.path, pos,
+                        lemma, needs)
 
     def source_span(self, a: Tree, b: Tree) -> str:
         return " ".join(self.text[a.meta.start_pos:b.meta.end_pos].split())
@@ -516,7 +539,14 @@ class _Builder:
         return RawAtom(self.expr(left), self.pos(t), (str(tok), q, self.pos(tok)),
                        self.expr(right))
 
-    def expr(self, t: Tree) -> RawExpr:
+    def expr(self, t: Tree) -> RawExpr | RawSubst:
+        if t.data == "e_subst":
+            body, *pairs = t.children
+            out = []
+            for p in pairs:
+                x, value = p.children
+                out.append((str(x), self.pos(x), self.expr(value)))
+            return RawSubst(self.expr(body), out, self.pos(t))
         if t.data == "e_ident":
             tok = t.children[0]
             return RawExpr(str(tok), self.pos(tok))

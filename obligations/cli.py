@@ -224,8 +224,11 @@ def _shard_option(ctx, param, value):
 @steps_option
 @names_option
 @nodes_option
-@click.option("--engine", type=click.Choice(["enum", "smt", "auto"]), default="enum",
-              show_default=True, help="Which engine decides the claims.")
+@click.option("--engine", type=click.Choice(["enum", "smt", "auto", "proof"]), default="enum",
+              show_default=True,
+              help="Which engine decides the claims: enum (every term up to the bounds), smt "
+                   "(the solver), proof (induction, for all terms), auto (a proof first, then "
+                   "the faster bounded engine).")
 @click.option("--timeout", type=float, default=None, help="Seconds per solver query (smt).")
 @click.option("--json", "json_path", metavar="PATH|-", default=None,
               help="Write the JSON report to PATH (- for standard output).")
@@ -238,14 +241,22 @@ def _shard_option(ctx, param, value):
 @click.option("--all", "collect_all", is_flag=True,
               help="Keep going after the first counterexample (up to 10 per claim).")
 @click.option("--quiet", is_flag=True, help="List only the claims that do not hold.")
+@click.option("--proof", "proof_path", metavar="PATH.md|PATH.tex", default=None,
+              help="Write the proofs the engine attempted (engines proof and auto), as "
+                   "Markdown or LaTeX.")
 def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
-          shard, collect_all: bool, quiet: bool) -> None:
+          shard, collect_all: bool, quiet: bool, proof_path: str | None) -> None:
     """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
     from .report import dumps, json_report, junit_report, text_report, use_colour, write_atomically
     from .runner import RunOptions, run_claims
     from .verdict import exit_code
 
+    if proof_path is not None:
+        if not proof_path.endswith((".md", ".tex")):
+            raise UsageError(f"--proof {proof_path}: the file name must end in .md or .tex")
+        if engine not in ("proof", "auto"):
+            raise UsageError("--proof needs --engine proof or --engine auto")
     spec = load(file)
     chosen = list(spec.claims)
     if claims:
@@ -268,6 +279,10 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         write_atomically(json_path, dumps(report))
     if junit_path is not None:
         write_atomically(junit_path, junit_report(spec.file, verdicts))
+    if proof_path is not None:
+        from .proofdoc import written_proofs
+
+        write_atomically(proof_path, written_proofs(spec.file, verdicts, proof_path))
     if json_path != "-":
         out = sys.stdout
         out.write(text_report(spec.file, verdicts, use_colour(out), quiet))

@@ -50,6 +50,8 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
     details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")
                and (v.counterexample is not None or v.undecided_example is not None
                     or v.part_of is not None or not _has_parts(v, verdicts))]
+    details += [v for v in verdicts if v not in details and v.proof
+                and not v.proof.get("proved")]
     for v in details:
         lines.append("")
         lines.extend(evidence_lines(v, colour))
@@ -75,7 +77,9 @@ def _bounds_text(v: Verdict) -> str:
 def _summary(v: Verdict) -> str:
     secs = f"{v.seconds:.2f}s"
     if v.scope == "all" and v.verdict == HOLDS:
-        return f"proved for all terms ({v.reason})  {secs}"
+        return f"proved for all terms ({v.reason})  [{v.engine}]  {secs}"
+    if v.engine == "proof" and v.verdict == HOLDS:
+        return f"{v.reason}  [proof]  {secs}"
     if v.verdict == HOLDS:
         return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}"
     if v.verdict == REFUTED and v.counterexample is None:
@@ -125,6 +129,26 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
             out.append(f"  undecided: {ex.evidence}")
     for n in v.notes:
         out.append(f"  note:     {n}")
+    out.extend(proof_lines(v))
+    return out
+
+
+def proof_lines(v: Verdict) -> list[str]:
+    """The open cases of a proof attempt, smallest first, each with its goal and reason."""
+    if not v.proof or v.proof.get("proved"):
+        return []
+    opens = v.proof.get("open", [])
+    out = [f"  proof:    {v.proof.get('method')}: {len(opens)} open case(s)"]
+    for c in sorted(opens, key=lambda c: len(c["case"]))[:10]:
+        out.append(f"    case {c['case']}")
+        goal = c.get("goal")
+        if goal:
+            out.append(f"      goal:  {goal['left']}")
+            out.append(f"         vs  {goal['right']}")
+        why = c.get("why") + (f" ({c['detail']})" if c.get("detail") else "")
+        out.append(f"      why:   {why}")
+        for lem in c.get("candidate_lemmas", []):
+            out.append(f"      try:   lemma L: {lem}")
     return out
 
 

@@ -38,6 +38,7 @@ class RunOptions:
     engine: str = "enum"
     timeout: float | None = None
     progress: Callable[[str, int, int], None] | None = None  # (claim, done, total)
+    book: Any = None  # the proof engine's results and lemmas (engines proof and auto)
 
 
 def claim_bounds(spec: Spec, claim: Claim, opts: RunOptions) -> Bounds:
@@ -49,6 +50,10 @@ def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions
     """Verdicts for every claim and part, in report order, and every claim's records."""
     out: list[Verdict] = []
     records: dict[str, Any] = {}
+    if opts.engine in ("proof", "auto") and opts.book is None:
+        from .lemmas import ProofBook
+
+        opts.book = ProofBook(spec, opts.bounds)
     for claim in claims:
         try:
             rec = claim_records(spec, claim, opts)
@@ -73,10 +78,34 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
         base = {"name": ob.name, "file": claim.file, "formula": ob.text,
                 "head": ob is p.head}
         start = time.perf_counter()
-        if ob.normalizes is not None:
+        proof = None
+        if opts.engine in ("proof", "auto") and ob.normalizes is None and (
+                bounded.is_relational(ob)):
+            result = opts.book.result(claim, ob)
+            proof = result.to_json()
+            if result.proved and not (result.assumes and opts.engine == "auto"):
+                obs.append({**base, "kind": "fixed",
+                            "verdict": _proof_verdict(ob, claim, b, result).to_json()})
+                continue
+            if opts.engine == "proof":
+                obs.append({**base, "kind": "fixed",
+                            "verdict": _proof_verdict(ob, claim, b, result).to_json()})
+                continue
+            base["proof"] = proof
+        if ob.normalizes is not None and opts.engine == "proof":
+            v = Verdict(ob.name, claim.file, ob.text, INCONCLUSIVE, b, engine="proof",
+                        reason="the proof engine does not run `then normalize`; "
+                               "use --engine auto or enum")
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
+        elif ob.normalizes is not None:
             tr = spec.translations[ob.normalizes]
             obs.append({**base, "kind": "normalize", "translation": tr.name,
                         "group": tr.normalize})
+        elif not bounded.is_relational(ob) and opts.engine == "proof":
+            raise EncodingError(f"claim {claim.name}: {ob.text} is not proved by induction; "
+                                "confluence and termination are the rewriting engine's",
+                                claim.pos, hint="use --engine enum or auto for confluent and "
+                                "terminating claims")
         elif bounded.is_relational(ob) and _engine(spec, ob, opts) == "smt":
             from .smt_engine import run_smt
 
@@ -96,7 +125,27 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
     return {"claim": claim.name, "file": claim.file, "formula": claim.text,
             "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
-            "shard": list(opts.shard) if opts.shard else None}
+            "shard": list(opts.shard) if opts.shard else None, "lemma": claim.lemma}
+
+
+def _proof_verdict(ob: Obligation, claim: Claim, b: Bounds, result) -> Verdict:
+    """The verdict of the proof engine alone: proved for all terms, proved assuming lemmas
+    checked only up to bounds, or open cases (inconclusive; it never refutes)."""
+    if result.proved and not result.assumes:
+        verdict, scope = HOLDS, "all"
+        reason = result.method
+    elif result.proved:
+        verdict, scope = HOLDS, "bounded"
+        reason = (f"{result.method}, assuming {', '.join(result.assumes)} (checked up to the "
+                  "bounds only)")
+    else:
+        verdict, scope = INCONCLUSIVE, "bounded"
+        reason = f"not proved: {result.reason}"
+    v = Verdict(ob.name, claim.file, ob.text, verdict, b, scope=scope, reason=reason,
+                seconds=result.seconds, engine="proof", proof=result.to_json(),
+                lemmas=list(result.lemmas), assumes=list(result.assumes))
+    v.tried = len(result.cases)
+    return v
 
 
 def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
@@ -135,7 +184,10 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
                                           o["group"], b, relational, cutoffs)
         else:
             v = Verdict.from_json(o["verdict"])
+        if o.get("proof") is not None and v.proof is None:
+            v.proof = o["proof"]
         if o["head"]:
+            v.lemma = bool(rec.get("lemma"))
             head_v = v
         else:
             v.part_of = rec["claim"]

@@ -64,6 +64,10 @@ class Verdict:
     notes: list[str] = field(default_factory=list)
     part_of: str | None = None
     undecided_example: Counterexample | None = None  # the smallest undecided case
+    lemma: bool = False  # the claim is a `lemma`
+    proof: dict[str, Any] | None = None  # what the proof engine made of it (cases, open goals)
+    lemmas: list[str] = field(default_factory=list)  # proved lemmas its proof used
+    assumes: list[str] = field(default_factory=list)  # lemmas used that are only bounded
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -90,6 +94,14 @@ class Verdict:
             out["notes"] = list(self.notes)
         if self.part_of is not None:
             out["part_of"] = self.part_of
+        if self.lemma:
+            out["lemma"] = True
+        if self.lemmas:
+            out["lemmas"] = list(self.lemmas)
+        if self.assumes:
+            out["assumes"] = list(self.assumes)
+        if self.proof is not None:
+            out["proof"] = self.proof
         return out
 
     @classmethod
@@ -109,6 +121,8 @@ class Verdict:
             notes=list(data.get("notes", [])), part_of=data.get("part_of"),
             undecided_example=(Counterexample.from_json(data["undecided_example"])
                                if data.get("undecided_example") else None),
+            lemma=bool(data.get("lemma", False)), proof=data.get("proof"),
+            lemmas=list(data.get("lemmas", [])), assumes=list(data.get("assumes", [])),
         )
 
 

@@ -25,6 +25,11 @@ from .terms import Bound, Name, Node, Term
 State = frozenset[str]
 EMPTY: State = frozenset()
 
+#: Opaque nodes of symbolic terms (:mod:`rules.symbolic`): constructor -> (calculus, sort,
+#: names sort of each parameter).  An opaque node stands for an unknown term of its sort
+#: whose parameters have been replaced by the node's arguments.
+OPAQUE_SORTS: dict[str, tuple[str, str, tuple[str, ...]]] = {}
+
 
 class Grammar:
     """The automaton of one calculus's (non-context) sorts."""
@@ -105,7 +110,9 @@ class Grammar:
         if got is not None:
             return got
         shape = self.calc.shapes.get(term.con)
-        if shape is None or shape.binders != term.binders:
+        if shape is None and term.con in OPAQUE_SORTS:
+            result = self._opaque_state(term, env)
+        elif shape is None or shape.binders != term.binders:
             result = EMPTY
         else:
             children = []
@@ -115,6 +122,23 @@ class Grammar:
             result = self.delta(term.con, tuple(children))
         per_term[key] = result
         return result
+
+    def _opaque_state(self, term: Node, env: tuple[str, ...]) -> State:
+        """The sorts every instance of an opaque node belongs to (an under-approximation).
+
+        An instance of sort ``S`` belongs to every sort of every state containing ``S``.
+        Replacing its parameter names by the arguments keeps that when each argument has
+        at least the sorts of a name of the parameter's names sort (the state of a node
+        grows with its children's states), and not otherwise: then nothing is known.
+        """
+        calc, sort, params = OPAQUE_SORTS[term.con]
+        if calc != self.calc.name or sort not in self.supers:
+            return EMPTY
+        for arg, ns in zip(term.args, params, strict=True):
+            need = self.names_state.get(ns, EMPTY)
+            if not need <= self.state(arg, env):
+                return EMPTY
+        return self.sorts_including((sort,))
 
     def member(self, term: Term, sort: str, env: tuple[str, ...] = ()) -> bool:
         return sort in self.state(term, env)

@@ -73,7 +73,7 @@ from rules.symbolic import (
     steps_keep_sorts,
     symbolic_steps,
 )
-from rules.terms import Name, Node, Term, close, name, node, substitute
+from rules.terms import Bound, Name, Node, Term, close, name, node, substitute
 
 from .claims import Obligation
 
@@ -81,6 +81,7 @@ PROVED, OPEN = "proved", "open"
 NEEDS_LEMMA, STUCK, SPLIT_LIMIT, SEARCH_CUT = "needs-lemma", "stuck", "split-limit", "search-cut"
 REWRITE_ROUNDS = 40
 SPLIT_BUDGET = 60  # splits in one induction, in all
+SEARCH_NODES = 3000  # terms in one search of a proof case (also within `nodes`)
 
 
 # ---------------------------------------------------------------- results
@@ -364,8 +365,9 @@ class Prover:
         if not eqs:
             return t
         f = self.rewriter(eqs, trail)
+        relevant = _relevant(eqs)
         for _ in range(REWRITE_ROUNDS):
-            new = rewrite_everywhere(calc, t, f)
+            new = rewrite_everywhere(calc, t, f, relevant)
             if new is t:
                 return t
             t = new
@@ -465,7 +467,7 @@ class Prover:
                 steps: list[ProofStep]):
         calc = self.calc(rel.calculus or "")
         b = self.bounds
-        limit_steps, limit_nodes = b.steps or 10, b.nodes or 20000
+        limit_steps, limit_nodes = b.steps or 10, min(b.nodes or 20000, SEARCH_NODES)
         edges = [r for r in rws if r.kind != "=="]
         anywhere = calc.reduce_in is None
 
@@ -861,6 +863,38 @@ def _pending(t: Term) -> bool:
     return any(not isinstance(a, Name) for a in t.args)
 
 
+def _relevant(rws: list[Rewrite]) -> Callable[[Node], bool]:
+    """Which opaque nodes one of ``rws`` may rewrite (a cheap filter, before matching)."""
+    heads: list[Callable[[Node], bool]] = []
+    for rw in rws:
+        if rw.exact is not None:
+            con = rw.exact[0].con if isinstance(rw.exact[0], Node) else None
+            heads.append(lambda t, con=con: t.con == con)
+            continue
+        e = rw.left
+        if isinstance(e, ECall):
+            pending = bool(e.args) and isinstance(e.args[0], ESubst)
+
+            def head(t: Node, e=e, pending=pending) -> bool:
+                o = OPAQUES[t.con]
+                if o.kind != "call" or o.fn != e.fn or o.translation != e.translation:
+                    return False
+                # F(M[x := V]) applies only where the call's argument has a substitution
+                return not pending or _substituted(o.template[0])
+            heads.append(head)
+        elif isinstance(e, ESubst):
+            heads.append(lambda t: any(not isinstance(a, Name | Bound) for a in t.args))
+        else:
+            return lambda t: True
+    return lambda t: any(h(t) for h in heads)
+
+
+def _substituted(t: Term) -> bool:
+    """An opaque node with a term (not a name) pending for one of its parameters."""
+    return info(t) is not None and any(not isinstance(a, Name | Bound)
+                                       for a in t.args)  # type: ignore[union-attr]
+
+
 def _renaming(t: Term) -> bool:
     """An opaque node whose arguments are distinct names: a renaming, which commutes with
     translations (their equations cannot tell one name from another)."""
@@ -981,35 +1015,28 @@ class _Search:
         return list(reversed(out))
 
 
-_ORDER = {"0": 0, "1": 1, "2": 2}
-
-
 def _bfs(start: Term, succ, steps: int, nodes: int, goal: Term | None = None,
          kind: str = "->*") -> _Search:
-    """Breadth-first over (term, summary); the summary is the least number of steps the path
-    surely takes (0, 1, 2 for more) and whether that number is exact."""
-    init = (start, 0, True)
-    parents: dict = {init: (None, "")}
+    """Breadth-first over terms (interned, so interleavings of the same steps meet).  For
+    ``->+`` a state also records whether a step was taken; ``->`` and ``->=`` look at one
+    edge only.  ``goal`` None: explore (for joins)."""
+    out = _Search({start: (None, "")})
+    if kind in ("->", "->="):
+        if kind == "->=" and start is goal:
+            out.hit = start
+            return out
+        for res, how, why in succ(start):
+            if res is goal and how in ("one", "->"):
+                out.parents[res] = (start, why)
+                out.hit = res
+                return out
+        return out
+    need_step = kind == "->+"
+    init = (start, not need_step)
+    parents: dict[tuple[Term, bool], tuple[tuple[Term, bool] | None, str]] = {init: (None, "")}
     depth = {init: 0}
-    term_parents: dict[Term, tuple[Term | None, str]] = {start: (None, "")}
     queue = deque([init])
-    out = _Search(term_parents)
-
-    def good(state) -> bool:
-        t, least, exact = state
-        if goal is None or t is not goal:
-            return False
-        if kind == "->*":
-            return True
-        if kind == "->+":
-            return least >= 1
-        if kind == "->":
-            return exact and least == 1
-        if kind == "->=":
-            return exact and least <= 1
-        return False
-
-    if good(init):
+    if goal is not None and init == (goal, True):
         out.hit = start
         return out
     while queue:
@@ -1017,16 +1044,9 @@ def _bfs(start: Term, succ, steps: int, nodes: int, goal: Term | None = None,
         if depth[state] >= steps:
             out.cut = True
             continue
-        t = state[0]
+        t, stepped = state
         for res, how, why in succ(t):
-            least, exact = state[1], state[2]
-            if how == "one" or how == "->":
-                least = min(least + 1, 2)
-            elif how == "->+":
-                least, exact = min(least + 1, 2), False
-            elif how in ("->*", "->="):
-                exact = False
-            new = (res, least, exact)
+            new = (res, stepped or how in ("one", "->", "->+"))
             if new in parents:
                 continue
             if len(parents) >= nodes:
@@ -1034,17 +1054,16 @@ def _bfs(start: Term, succ, steps: int, nodes: int, goal: Term | None = None,
                 return out
             parents[new] = (state, why)
             depth[new] = depth[state] + 1
-            if res not in term_parents:
-                term_parents[res] = (t, why)
-            if good(new):
-                # rebuild the path of this very state
-                path = []
-                s = new
-                while parents[s][0] is not None:
-                    prev, w = parents[s]
-                    path.append((s[0], w))
-                    s = prev
+            if res not in out.parents:
+                out.parents[res] = (t, why)
+            if goal is not None and res is goal and new[1]:
                 chain: dict[Term, tuple[Term | None, str]] = {start: (None, "")}
+                path = []
+                cur: tuple[Term, bool] | None = new
+                while cur is not None and parents[cur][0] is not None:
+                    prev, w = parents[cur]
+                    path.append((cur[0], w))
+                    cur = prev
                 prev_t = start
                 for tt, w in reversed(path):
                     chain[tt] = (prev_t, w)

@@ -35,6 +35,7 @@ from dataclasses import dataclass, field
 
 from .instantiate import build
 from .match import Context, decompositions, match
+from .rewrite import _skeleton
 from .sorts import OPAQUE_SORTS, State, grammar
 from .spec import (
     AltCon,
@@ -51,7 +52,19 @@ from .spec import (
     Spec,
     Translation,
 )
-from .terms import Bound, Name, Node, Term, bound, close, name, node, open_body, substitute
+from .terms import (
+    Bound,
+    Name,
+    Node,
+    Term,
+    bound,
+    close,
+    fresh_name,
+    name,
+    node,
+    open_body,
+    substitute,
+)
 
 
 class Stuck(Exception):
@@ -539,34 +552,75 @@ def root_steps(calc: Calculus, t: Term, group: str | None) -> list[tuple[str, Te
 
 def symbolic_steps(calc: Calculus, t: Term, group: str | None) -> list[tuple[str, str, Term]]:
     """Every step ``(rule, position, result)`` of ``t`` that exists for every instance: rules
-    fire outside opaque parts only, at the places the calculus's ``reduce`` line allows."""
+    fire outside opaque parts only, at the places the calculus's ``reduce`` line allows.
+
+    As in the rewriting engine, descending does not open binders: only a subterm whose
+    constructors fit some left-hand side is opened, stepped and closed again."""
     out: list[tuple[str, str, Term]] = []
     if calc.reduce_in is not None:
         for ctx, hole in decompositions(calc, calc.reduce_in, t):
             for r, res in root_steps(calc, hole, group):
                 out.append((r, _pos(ctx.position), ctx.plug(res)))
         return out
+    rules = calc.rules_of(group)
+    lhss = [r.lhs for r in rules]
+    memo, steps_memo = _step_memos(calc, group)
 
-    def go(s: Term, pos: tuple[int, ...]) -> Iterator[tuple[str, tuple[int, ...], Term]]:
-        if info(s) is not None:
-            return
-        for r, res in root_steps(calc, s, group):
-            yield r, pos, res
-        if isinstance(s, Node):
-            for i, (a, k) in enumerate(zip(s.args, s.binders, strict=True)):
-                if k:
-                    names = [fresh(ns) for ns in _binder_sorts(calc, s.con, i, k)]
-                    inner = open_body(a, names)
-                    for r, p, res in go(inner, (*pos, i)):
-                        new = close(res, [n.name for n in names])
-                        yield r, p, node(s.con, s.args[:i] + (new,) + s.args[i + 1:], s.binders)
-                else:
-                    for r, p, res in go(a, (*pos, i)):
-                        yield r, p, node(s.con, s.args[:i] + (res,) + s.args[i + 1:], s.binders)
+    def may(s: Term) -> bool:
+        got = memo.get(s)
+        if got is None:
+            got = isinstance(s, Node) and info(s) is None and (
+                any(_skeleton(p, s) for p in lhss) or any(may(a) for a in s.args))
+            memo[s] = got
+        return got
+
+    def go(s: Term, env: tuple[str, ...]) -> list[tuple[str, tuple[int, ...], Term]]:
+        if not may(s):
+            return []
+        env = env[: s.loose]
+        key = (s, env)
+        got = steps_memo.get(key)
+        if got is not None:
+            return got
+        assert isinstance(s, Node)
+        found: list[tuple[str, tuple[int, ...], Term]] = []
+        if any(_skeleton(p, s) for p in lhss):
+            if s.loose:
+                taken = set(s.free)
+                names: list[str] = []
+                for j in range(s.loose - 1, -1, -1):  # outermost first, as the engine does
+                    n = fresh_name(taken, base=f"{env[j]}:")
+                    taken.add(n)
+                    names.append(n)
+                opened = open_body(s, [name(n) for n in names])
+                found.extend((r, (), close(res, names)) for r, res in
+                             root_steps(calc, opened, group))
+            else:
+                found.extend((r, (), res) for r, res in root_steps(calc, s, group))
+        for i, (a, k) in enumerate(zip(s.args, s.binders, strict=True)):
+            inner = tuple(reversed(_binder_sorts(calc, s.con, i, k))) + env if k else env
+            for r, p, res in go(a, inner):
+                found.append((r, (i, *p), node(s.con, s.args[:i] + (res,) + s.args[i + 1:],
+                                               s.binders)))
+        if len(steps_memo) > 200_000:
+            steps_memo.clear()
+        steps_memo[key] = found
+        return found
 
     for r, p, res in go(t, ()):
         out.append((r, _pos(p), res))
     return out
+
+
+_MEMOS: dict[tuple[int, str | None], tuple[Calculus, dict, dict]] = {}
+
+
+def _step_memos(calc: Calculus, group: str | None) -> tuple[dict, dict]:
+    got = _MEMOS.get((id(calc), group))
+    if got is None or got[0] is not calc:
+        got = (calc, {}, {})
+        _MEMOS[(id(calc), group)] = got
+    return got[1], got[2]
 
 
 def _binder_sorts(calc: Calculus, con: str, i: int, k: int) -> tuple[str, ...]:
@@ -609,23 +663,44 @@ def rewrite_positions(calc: Calculus, t: Term, anywhere: bool, f: Callable[[Term
         yield _pos(p), res
 
 
-def rewrite_everywhere(calc: Calculus, t: Term, f: Callable[[Term], Term | None]) -> Term:
+def rewrite_everywhere(calc: Calculus, t: Term, f: Callable[[Term], Term | None],
+                       relevant: Callable[[Node], bool] | None = None,
+                       memo: dict[Term, bool] | None = None) -> Term:
     """``t`` with ``f`` applied once, bottom-up, at every place where it applies (the
-    arguments of opaque nodes included: equal values substituted give equal terms)."""
+    arguments of opaque nodes included: equal values substituted give equal terms).
+    ``relevant`` says which opaque nodes ``f`` may apply at: subterms without one are
+    left alone (and their binders unopened)."""
+    if relevant is not None:
+        memo = {} if memo is None else memo
+        if not _contains(t, relevant, memo):
+            return t
     if isinstance(t, Node) and info(t) is not None:
-        t = node(t.con, [rewrite_everywhere(calc, a, f) for a in t.args], t.binders)
+        t = node(t.con, [rewrite_everywhere(calc, a, f, relevant, memo) for a in t.args],
+                 t.binders)
     elif isinstance(t, Node):
         args = []
         for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
-            if k:
+            if k and (relevant is None or _contains(a, relevant, memo or {})):
                 names = [fresh(ns) for ns in _binder_sorts(calc, t.con, i, k)]
-                inner = rewrite_everywhere(calc, open_body(a, names), f)
+                inner = rewrite_everywhere(calc, open_body(a, names), f, relevant, memo)
                 args.append(close(inner, [n.name for n in names]))
+            elif k:
+                args.append(a)
             else:
-                args.append(rewrite_everywhere(calc, a, f))
+                args.append(rewrite_everywhere(calc, a, f, relevant, memo))
         t = node(t.con, args, t.binders)
     got = f(t)
     return t if got is None else got
+
+
+def _contains(t: Term, relevant: Callable[[Node], bool], memo: dict[Term, bool]) -> bool:
+    got = memo.get(t)
+    if got is None:
+        got = isinstance(t, Node) and (
+            (info(t) is not None and relevant(t)) or any(_contains(a, relevant, memo)
+                                                         for a in t.args))
+        memo[t] = got
+    return got
 
 
 # ---------------------------------------------------------------- rules as cases

@@ -13,11 +13,10 @@ import re
 
 import z3
 
-from rules.errors import CalcError, UsageError
-from rules.spec import Bounds
-
-from .smtlib import obligation_query, read_header
-from .symbolic import evaluate, to_term
+from calcscout.encoders.smtlib import obligation_query, read_header
+from calcscout.encoders.symbolic import evaluate, to_term
+from calcscout.rules.core.errors import CalcError, UsageError
+from calcscout.rules.core.spec import Bounds
 
 
 def parse_sexprs(text: str, where: str) -> list:
@@ -78,10 +77,10 @@ def _value(v, sort, path: str) -> int | bool:
 
 def explain_model(solver_output_path: str, smt2_path: str) -> str:
     """The counterexample a solver's model of an exported file stands for, as text."""
-    from obligations.claims import plan
-    from obligations.smt_engine import _Judge
-    from rules.notation import print_abstract
-    from rules.parse import load_file
+    from calcscout.obligations.claims import plan
+    from calcscout.obligations.engines.smt import _Judge
+    from calcscout.rules.loading.load import load_file
+    from calcscout.rules.notation.notation import print_abstract
 
     try:
         header = read_header(smt2_path)

@@ -3,7 +3,7 @@
 A file is the whole bounded query of one obligation in ``QF_LIA``: the node
 array up to the size bound, one literal ``sizeN`` per size whose truth says
 that the claim fails on terms of total size ``N``, and the assertion that
-one of them holds.  Any solver reads it; :func:`encoders.model.explain_model`
+one of them holds.  Any solver reads it; :func:`calcscout.encoders.model.explain_model`
 turns the solver's model back into the counterexample's terms, reading the
 ``; calcscout-...`` lines of the header to rebuild the encoding.
 """
@@ -16,10 +16,9 @@ from pathlib import Path
 
 import z3
 
-from rules.errors import EncodingError
-from rules.spec import Bounds, Claim, Spec
-
-from .smt import Encoding, encodable
+from calcscout.encoders.smt import Encoding, encodable
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Bounds, Claim, Spec
 
 HEADER_KEYS = ("spec", "claim", "obligation", "bounds", "mode")
 
@@ -52,9 +51,9 @@ def export_obligations(spec: Spec, claim: Claim, bounds: Bounds, out_dir: str | 
     """Write one ``.smt2`` file per encodable obligation of ``claim`` into ``out_dir``.
 
     ``bounds`` are the effective bounds (size and names matter). Raises
-    :class:`~rules.errors.EncodingError` when no obligation of the claim can be encoded.
+    :class:`~calcscout.rules.core.errors.EncodingError` when no obligation of the claim can be encoded.
     """
-    from obligations.claims import plan
+    from calcscout.obligations.claims import plan
 
     p = plan(spec, claim)
     obs = ([p.head] if p.head else []) + [o for o in p.parts if o.normalizes is None]

@@ -19,7 +19,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from rules.spec import (
+from calcscout.rules.core.spec import (
     Atom,
     Claim,
     ECall,

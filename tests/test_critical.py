@@ -8,11 +8,11 @@ import json
 from functools import cache
 from pathlib import Path
 
-from rules.critical import critical_pairs, overlaps, pairs_report, parallel_reducts
-from rules.notation import parse_term, print_abstract
-from rules.parse import load_file
-from rules.rewrite import join, reducts
-from rules.spec import Bounds, Calculus
+from calcscout.rules.core.spec import Bounds, Calculus
+from calcscout.rules.critical_pairs.critical import critical_pairs, overlaps, pairs_report, parallel_reducts
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term, print_abstract
+from calcscout.rules.rewriting.rewrite import join, reducts
 
 DATA = Path(__file__).parent / "data"
 LIBRARY = Path(__file__).parent.parent / "rules" / "library"

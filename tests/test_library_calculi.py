@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from obligations.runner import RunOptions, run_claims
-from rules.parse import load_file
+from calcscout.obligations.runner import RunOptions, run_claims
+from calcscout.rules.loading.load import load_file
 
 LIB = Path(__file__).resolve().parents[1] / "rules" / "library"
 

@@ -14,15 +14,15 @@ from pathlib import Path
 
 import pytest
 
-from obligations.runner import RunOptions, run_claims
-from obligations.verdict import Counterexample, Verdict
-from rules.errors import CalcError
-from rules.notation import parse_term, print_abstract
-from rules.parse import load_file
-from rules.rewrite import reducts
-from rules.sorts import grammar
-from rules.spec import Bounds, Spec
-from rules.translate import Translator
+from calcscout.obligations.runner import RunOptions, run_claims
+from calcscout.obligations.verdict import Counterexample, Verdict
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import Bounds, Spec
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term, print_abstract
+from calcscout.rules.rewriting.rewrite import reducts
+from calcscout.rules.rewriting.translate import Translator
 
 ROOT = Path(__file__).parent.parent
 LIBRARY = ROOT / "rules" / "library"
@@ -90,7 +90,7 @@ def holds(v: Verdict) -> bool:
 def test_library_file_loads_with_its_claims(file):
     from click.testing import CliRunner
 
-    from obligations.cli import cli
+    from calcscout.obligations.commands.cli import cli
 
     result = CliRunner().invoke(cli, ["lint", str(LIBRARY / file)])
     assert result.exit_code == 0, result.output
@@ -252,7 +252,7 @@ def test_textbook_counterexample_on_the_command_line():
 
     from click.testing import CliRunner
 
-    from obligations.cli import cli
+    from calcscout.obligations.commands.cli import cli
 
     result = CliRunner().invoke(cli, ["check", str(LIBRARY / BRACKET), "cl_sim", "cl_sim_outside",
                                       "--json", "-"])

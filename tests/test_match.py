@@ -10,8 +10,12 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rules.instantiate import build
-from rules.match import (
+from calcscout.rules.core.spec import Calculus, PAbs, PCon, PMeta, PName, PPlug, Rule
+from calcscout.rules.core.terms import Name, Node, Term, bound, is_internal, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term
+from calcscout.rules.rewriting.instantiate import build
+from calcscout.rules.rewriting.match import (
     Context,
     check_conditions,
     decompositions,
@@ -19,10 +23,6 @@ from rules.match import (
     match,
     rule_matches,
 )
-from rules.notation import parse_term
-from rules.parse import load_file
-from rules.spec import Calculus, PAbs, PCon, PMeta, PName, PPlug, Rule
-from rules.terms import Name, Node, Term, bound, is_internal, name, node
 
 DATA = Path(__file__).parent / "data" / "rewrite"
 

@@ -10,11 +10,11 @@ from pathlib import Path
 
 import pytest
 
-from encoders.model import explain_model, read_model
-from encoders.smtlib import export_obligations
-from rules.errors import UsageError
-from rules.parse import load_file
-from rules.spec import Bounds
+from calcscout.encoders.model import explain_model, read_model
+from calcscout.encoders.smtlib import export_obligations
+from calcscout.rules.core.errors import UsageError
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
 
 DATA = Path(__file__).parent / "data"
 CPS = DATA / "smt" / "cps.calc"

@@ -15,11 +15,13 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rules.enumerate import enumerate_terms
-from rules.errors import FileError
-from rules.notation import parse_term
-from rules.parse import load_file
-from rules.rewrite import (
+from calcscout.rules.core.enumerate import enumerate_terms
+from calcscout.rules.core.errors import FileError
+from calcscout.rules.core.spec import Calculus, Rule
+from calcscout.rules.core.terms import Term, is_internal, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term
+from calcscout.rules.rewriting.rewrite import (
     find_cycle,
     join,
     normal_forms,
@@ -29,8 +31,6 @@ from rules.rewrite import (
     reduction_graph,
     reducts,
 )
-from rules.spec import Calculus, Rule
-from rules.terms import Term, is_internal, name, node
 
 DATA = Path(__file__).parent / "data" / "rewrite"
 LIBRARY = Path(__file__).parent.parent / "rules" / "library"

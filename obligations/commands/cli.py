@@ -1,6 +1,6 @@
 """The ``calcscout`` command line.
 
-One handler at the top (:func:`main`) turns every :class:`~rules.errors.CalcError`
+One handler at the top (:func:`main`) turns every :class:`~calcscout.rules.core.errors.CalcError`
 into its message and exit status 2 (or its own code), and any other exception
 into a short internal-error report: a user never sees a traceback for their
 own mistake.
@@ -15,8 +15,8 @@ from importlib.metadata import PackageNotFoundError, version
 
 import click
 
-from rules.errors import CalcError, UsageError
-from rules.spec import Bounds, Calculus, Spec
+from calcscout.rules.core.errors import CalcError, UsageError
+from calcscout.rules.core.spec import Bounds, Calculus, Spec
 
 
 def _version() -> str:
@@ -49,7 +49,7 @@ nodes_option = click.option("--nodes", type=int, default=None, callback=_positiv
 
 
 def load(path: str) -> Spec:
-    from rules.parse import load_file
+    from calcscout.rules.loading.load import load_file
 
     return load_file(path)
 
@@ -104,8 +104,8 @@ def lint(file: str) -> None:
 @click.option("--count", is_flag=True, help="Print only the number of terms (without building them).")
 def terms(file: str, sort: str, size: int | None, names: int | None, count: bool) -> None:
     """List the terms of CALC.SORT up to the size bound, smallest first, in abstract form."""
-    from rules.enumerate import count_terms, enumerate_terms
-    from rules.notation import print_abstract
+    from calcscout.rules.core.enumerate import count_terms, enumerate_terms
+    from calcscout.rules.notation.notation import print_abstract
 
     spec = load(file)
     if "." not in sort:
@@ -144,8 +144,8 @@ def translate(file: str, function: str, term: str, args: tuple[str, ...], steps:
     functions. The result is printed in abstract form, then with the target's
     notations where it has any.
     """
-    from rules.notation import parse_term, print_abstract, print_term
-    from rules.translate import Translator
+    from calcscout.rules.notation.notation import parse_term, print_abstract, print_term
+    from calcscout.rules.rewriting.translate import Translator
 
     spec = load(file)
     options = spec.functions_named(function)
@@ -242,9 +242,16 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
           shard, collect_all: bool, quiet: bool) -> None:
     """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
-    from .report import dumps, json_report, junit_report, text_report, use_colour, write_atomically
-    from .runner import RunOptions, run_claims
-    from .verdict import exit_code
+    from calcscout.obligations.reporting.report import (
+        dumps,
+        json_report,
+        junit_report,
+        text_report,
+        use_colour,
+        write_atomically,
+    )
+    from calcscout.obligations.runner import RunOptions, run_claims
+    from calcscout.obligations.verdict import exit_code
 
     spec = load(file)
     chosen = list(spec.claims)
@@ -289,12 +296,11 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
               help="Print the graph's summary as JSON (give -).")
 def reduce(file: str, calc_name: str, term: str, steps, nodes, dot_path, json_out) -> None:
     """Explore the reduction graph of TERM in calculus CALC within the bounds."""
-    from rules.notation import parse_term, print_abstract, print_term
-    from rules.rewrite import find_cycle, normal_forms, reduction_graph
-    from rules.sorts import grammar
-
-    from .dot import graph_to_dot
-    from .report import dumps, write_atomically
+    from calcscout.obligations.reporting.dot import graph_to_dot
+    from calcscout.obligations.reporting.report import dumps, write_atomically
+    from calcscout.rules.core.sorts import grammar
+    from calcscout.rules.notation.notation import parse_term, print_abstract, print_term
+    from calcscout.rules.rewriting.rewrite import find_cycle, normal_forms, reduction_graph
 
     spec = load(file)
     calc = calculus(spec, calc_name)
@@ -343,9 +349,8 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     A pair is settled symbolically (for all instances) or by instances of its
     metavariables up to --size; the output says which.
     """
-    from rules.critical import pairs_report
-
-    from .report import dumps, write_atomically
+    from calcscout.obligations.reporting.report import dumps, write_atomically
+    from calcscout.rules.critical_pairs.critical import pairs_report
 
     spec = load(file)
     cname, _, group = calc_name.partition(".")
@@ -389,7 +394,7 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
     model is turned back into the counterexample's terms by
     `calcscout explain --model SOLVER_OUTPUT FILE.smt2`.
     """
-    from encoders.smtlib import export_obligations
+    from calcscout.encoders.smtlib import export_obligations
 
     spec = load(file)
     claim = next((c for c in spec.claims if c.name == claim_name), None)
@@ -409,13 +414,13 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
 @click.option("-o", "output", required=True, metavar="REPORT", help="Where to write the merged report.")
 def merge(reports: tuple[str, ...], output: str) -> None:
     """Combine the JSON reports of `check --shard I/N` runs into the report of one whole run."""
-    from .merge import merge_reports
-    from .report import dumps, write_atomically
+    from calcscout.obligations.commands.merge import merge_reports
+    from calcscout.obligations.reporting.report import dumps, write_atomically
 
     merged = merge_reports(list(reports))
     write_atomically(output, dumps(merged))
     verdicts = [c["verdict"] for c in merged["claims"] if "part_of" not in c]
-    from .verdict import exit_code
+    from calcscout.obligations.verdict import exit_code
 
     click.echo(f"merged {len(reports)} report(s) into {output}: "
                + ", ".join(f"{c['name']} {c['verdict']}" for c in merged["claims"]
@@ -437,7 +442,7 @@ def explain(report: str | None, claim: str | None, dot_path: str | None,
     With --model SOLVER_OUTPUT, REPORT is an .smt2 file written by `export` and
     the model is turned back into the counterexample's terms.
     """
-    from .explain import explain_claim, explain_model
+    from calcscout.obligations.commands.explain import explain_claim, explain_model
 
     if model_path is not None:
         if report is None:

@@ -4,10 +4,9 @@ from __future__ import annotations
 
 import json
 
-from rules.errors import UsageError
-
-from .report import evidence_lines, write_atomically
-from .verdict import Verdict
+from calcscout.obligations.reporting.report import evidence_lines, write_atomically
+from calcscout.obligations.verdict import Verdict
+from calcscout.rules.core.errors import UsageError
 
 
 def load_report(path: str) -> dict:
@@ -41,13 +40,12 @@ def explain_claim(path: str, claim: str, dot_path: str | None = None) -> str:
 
 def write_counterexample_graph(spec_file: str, v: Verdict, dot_path: str) -> str:
     """Rebuild the reduction graph the evidence speaks of and write it in DOT."""
-    from rules.notation import parse_term
-    from rules.parse import load_file
-    from rules.rewrite import reduction_graph
-    from rules.spec import Atom, Confluent, Implies, Terminating
-
-    from .claims import plan
-    from .dot import graph_to_dot
+    from calcscout.obligations.claims import plan
+    from calcscout.obligations.reporting.dot import graph_to_dot
+    from calcscout.rules.core.spec import Atom, Confluent, Implies, Terminating
+    from calcscout.rules.loading.load import load_file
+    from calcscout.rules.notation.notation import parse_term
+    from calcscout.rules.rewriting.rewrite import reduction_graph
 
     ce = v.counterexample
     if ce is None:
@@ -91,7 +89,7 @@ def write_counterexample_graph(spec_file: str, v: Verdict, dot_path: str) -> str
 
 def explain_model(model_path: str, smt2_path: str) -> str:
     try:
-        from encoders.model import explain_model as run
+        from calcscout.encoders.model import explain_model as run
     except ImportError:
         raise UsageError("explain --model needs the SMT engine, which this build does not "
                          "include yet") from None

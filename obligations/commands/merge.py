@@ -4,11 +4,10 @@ from __future__ import annotations
 
 from typing import Any
 
-from rules.errors import UsageError
-
-from .explain import load_report
-from .report import json_report
-from .runner import finish_claim
+from calcscout.obligations.commands.explain import load_report
+from calcscout.obligations.reporting.report import json_report
+from calcscout.obligations.runner import finish_claim
+from calcscout.rules.core.errors import UsageError
 
 
 def merge_reports(paths: list[str]) -> dict[str, Any]:

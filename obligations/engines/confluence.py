@@ -12,7 +12,7 @@
     two terms whose complete graphs share none (two bottom strongly connected
     components that no bound cut); it is undecided when a bound cut the
     graph before that could be settled.  When no case fails, the critical
-    pairs are tried on instances (:mod:`rules.critical`): a concrete peak
+    pairs are tried on instances (:mod:`calcscout.rules.critical_pairs.critical`): a concrete peak
     whose two reducts do not join is a counterexample too (this is what
     catches a failure that needs a term larger than ``size``).
 
@@ -34,23 +34,10 @@ from dataclasses import dataclass
 
 import networkx as nx
 
-from rules import critical
-from rules.enumerate import enumerate_terms
-from rules.notation import print_abstract
-from rules.rewrite import (
-    Graph,
-    find_cycle,
-    join,
-    normal_forms,
-    path_steps,
-    paused_gc,
-    position_text,
-    reaches,
-    reduction_graph,
-    reducts,
-)
-from rules.sorts import grammar
-from rules.spec import (
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+from calcscout.rules.core.enumerate import enumerate_terms
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import (
     Bounds,
     Calculus,
     Confluent,
@@ -64,9 +51,21 @@ from rules.spec import (
     Spec,
     Terminating,
 )
-from rules.terms import Term
-
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+from calcscout.rules.core.terms import Term
+from calcscout.rules.critical_pairs import critical
+from calcscout.rules.notation.notation import print_abstract
+from calcscout.rules.rewriting.rewrite import (
+    Graph,
+    find_cycle,
+    join,
+    normal_forms,
+    path_steps,
+    paused_gc,
+    position_text,
+    reaches,
+    reduction_graph,
+    reducts,
+)
 
 # ---------------------------------------------------------------- the claim
 
@@ -266,7 +265,7 @@ def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | 
     V. van Oostrom, "Developing developments", TCS 175, 1997), a parallel step
     being a development of disjoint redexes.
 
-    >>> from rules.parse import load_text
+    >>> from calcscout.rules.loading.load import load_text
     >>> calc = load_text('''calculus c { sort t M N ::= a | b | f(M)
     ...   rule r1: f(a) -> b
     ...   rule r2: a -> b }''').calculi["c"]
@@ -312,7 +311,7 @@ def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | 
 
 def decide_confluent(spec: Spec, what, bounds: Bounds, prove: bool = True) -> Verdict:
     """The verdict on ``confluent C`` (``what``: an obligation, a claim, a
-    :class:`~rules.spec.Confluent` formula, a calculus or its name).
+    :class:`~calcscout.rules.core.spec.Confluent` formula, a calculus or its name).
 
     With ``prove`` False the theorems are not tried (the bounded search alone).
     """

@@ -2,7 +2,7 @@
 smallest first (LANGUAGE.md §8).
 
 The quantified metavariables are enumerated jointly by increasing total size
-(rules.enumerate.enumerate_tuples), so the first failing case is a smallest
+(calcscout.rules.core.enumerate.enumerate_tuples), so the first failing case is a smallest
 one.  A case that fails is re-checked along an independent path (the printed
 terms parsed back, translations recomputed with empty memo tables,
 reachability by the rewriting module's own graph builder) before it is
@@ -23,16 +23,15 @@ from collections.abc import Callable
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.enumerate import enumerate_tuples
-from rules.notation import parse_term, print_abstract
-from rules.rewrite import paused_gc, position_text, reaches, reduction_graph, reducts
-from rules.spec import Atom, Bounds, Calculus, Implies, Spec
-from rules.terms import Term
-from rules.translate import Undefined
-
-from .claims import Obligation
-from .evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome, search
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+from calcscout.obligations.claims import Obligation
+from calcscout.obligations.engines.evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome, search
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+from calcscout.rules.core.enumerate import enumerate_tuples
+from calcscout.rules.core.spec import Atom, Bounds, Calculus, Implies, Spec
+from calcscout.rules.core.terms import Term
+from calcscout.rules.notation.notation import parse_term, print_abstract
+from calcscout.rules.rewriting.rewrite import paused_gc, position_text, reaches, reduction_graph, reducts
+from calcscout.rules.rewriting.translate import Undefined
 
 ALL_LIMIT = 10
 

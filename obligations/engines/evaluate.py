@@ -15,12 +15,12 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.notation import print_abstract
-from rules.rewrite import join, position_text, reduction_graph, reducts
-from rules.sorts import grammar
-from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
-from rules.terms import Node, Term, name, open_body
-from rules.translate import Translator, Undefined
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
+from calcscout.rules.core.terms import Node, Term, name, open_body
+from calcscout.rules.notation.notation import print_abstract
+from calcscout.rules.rewriting.rewrite import join, position_text, reduction_graph, reducts
+from calcscout.rules.rewriting.translate import Translator, Undefined
 
 OK = "ok"
 FAIL = "fail"

@@ -19,22 +19,21 @@ Which engine ``auto`` takes, per obligation (:func:`choose_engine`):
 
 from __future__ import annotations
 
-from rules.enumerate import count_tuples
-from rules.errors import EncodingError
-from rules.rewrite import reducts
-from rules.spec import Atom, Bounds, Implies, Spec
-
-from .bounded import InternalError, build_counterexample, recheck
-from .claims import Obligation
-from .evaluate import FAIL, OK, UNDECIDED, Evaluator
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
+from calcscout.obligations.claims import Obligation
+from calcscout.obligations.engines.enumeration import InternalError, build_counterexample, recheck
+from calcscout.obligations.engines.evaluate import FAIL, OK, UNDECIDED, Evaluator
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
+from calcscout.rules.core.enumerate import count_tuples
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Atom, Bounds, Implies, Spec
+from calcscout.rules.rewriting.rewrite import reducts
 
 DECIDED_KINDS = ("==", "->", "->=", ":")
 
 
 def can_encode(spec: Spec, ob: Obligation) -> tuple[bool, str]:
     """Whether the SMT engine can take ``ob``; the reason when it cannot."""
-    from encoders.smt import encodable
+    from calcscout.encoders.smt import encodable
 
     if ob.normalizes is not None:
         return False, "the normalize(T) part is decided by rewriting"
@@ -80,11 +79,11 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
             budget: int = 4_000_000) -> Verdict:
     """Decide one relational obligation with the solver, size by size up to ``bounds.size``.
 
-    Raises :class:`~rules.errors.EncodingError` where the obligation cannot be
-    encoded, and :class:`~obligations.bounded.InternalError` where a model of a
+    Raises :class:`~calcscout.rules.core.errors.EncodingError` where the obligation cannot be
+    encoded, and :class:`~calcscout.obligations.engines.enumeration.InternalError` where a model of a
     decided claim does not re-check (a bug, never a verdict).
     """
-    from encoders.z3run import ModelMismatch, solve
+    from calcscout.encoders.z3run import ModelMismatch, solve
 
     ok, why = can_encode(spec, ob)
     if not ok:

@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import networkx as nx
 
-from rules.notation import print_term
-from rules.rewrite import position_text
-from rules.spec import Calculus
+from calcscout.rules.core.spec import Calculus
+from calcscout.rules.notation.notation import print_term
+from calcscout.rules.rewriting.rewrite import position_text
 
 
 def _quote(text: str) -> str:

@@ -15,7 +15,7 @@ from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
 
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
 
 COLOURS = {HOLDS: "32", REFUTED: "31;1", INCONCLUSIVE: "33", "error": "35"}
 

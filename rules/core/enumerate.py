@@ -1,12 +1,12 @@
 """All terms of a sort by increasing size, each α-class once, and their exact counts.
 
 The enumeration runs over the states of the determinised sort automaton
-(:mod:`rules.sorts`), not over the sorts: the terms of sort ``S`` are the
+(:mod:`calcscout.rules.core.sorts`), not over the sorts: the terms of sort ``S`` are the
 disjoint union, over the reachable states ``q`` with ``S in q``, of the terms
 whose state is ``q``.  So a term is produced once however ambiguous the
 grammar is (two alternatives deriving the same term give it one state).
 
-Bound names are de Bruijn indices (:mod:`rules.terms`), so α-classes are
+Bound names are de Bruijn indices (:mod:`calcscout.rules.core.terms`), so α-classes are
 canonical for them.  Free names are made canonical by first occurrence from
 left to right (LANGUAGE.md §4): the recursion threads how many free names of
 each names sort were used so far, ``T(class, size, env, used) -> (term,
@@ -22,14 +22,14 @@ Sharding (``shard=(i, n)``) yields the items whose position in the stream is
 ``i - 1`` modulo ``n``; blocks of the stream that hold no wanted item are
 skipped by their count, without building their terms.
 
->>> from rules.spec import Arg, AltCon, AltNames, Calculus, NamesSort, Shape, Sort
+>>> from calcscout.rules.core.spec import Arg, AltCon, AltNames, Calculus, NamesSort, Shape, Sort
 >>> lam = Calculus("lam", {"var": NamesSort("var", ("x", "y"))},
 ...     {"term": Sort("term", ("M", "N"), (AltNames("var"),
 ...         AltCon("lam", (Arg(("var",), "term"),)),
 ...         AltCon("app", (Arg((), "term"), Arg((), "term")))))},
 ...     {"lam": Shape("lam", (("var",),)), "app": Shape("app", ((), ()))},
 ...     (), metas={"x": "var", "y": "var", "M": "term", "N": "term"})
->>> from rules.terms import debug_str
+>>> from calcscout.rules.core.terms import debug_str
 >>> [debug_str(t) for t in enumerate_terms(lam, "term", 3, 2)]
 ['x', 'lam(.^0)', 'lam(.x)', 'lam(.lam(.^0))', 'lam(.lam(.^1))', 'lam(.lam(.x))', 'app(x, x)', 'app(x, y)']
 >>> count_by_size(lam, "term", 6, 0)
@@ -41,9 +41,9 @@ from __future__ import annotations
 import itertools
 from collections.abc import Callable, Iterable, Iterator, Sequence
 
-from .sorts import EMPTY, Grammar, State, grammar
-from .spec import Calculus
-from .terms import Term, bound, name, node
+from calcscout.rules.core.sorts import EMPTY, Grammar, State, grammar
+from calcscout.rules.core.spec import Calculus
+from calcscout.rules.core.terms import Term, bound, name, node
 
 #: Lists of at most this many subterms are memoised ...
 MEMO_ITEMS = 2048

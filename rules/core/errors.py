@@ -10,7 +10,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from .spec import Pos
+from calcscout.rules.core.spec import Pos
 
 
 @dataclass

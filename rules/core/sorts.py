@@ -19,8 +19,8 @@ import weakref
 from collections.abc import Iterable
 from functools import cached_property
 
-from .spec import AltCon, AltNames, AltSort, Calculus
-from .terms import Bound, Name, Node, Term
+from calcscout.rules.core.spec import AltCon, AltNames, AltSort, Calculus
+from calcscout.rules.core.terms import Bound, Name, Node, Term
 
 State = frozenset[str]
 EMPTY: State = frozenset()

@@ -1,9 +1,9 @@
 """The objects a rule file describes: calculi, sorts, rules, translations, claims.
 
-All are frozen dataclasses built once by :mod:`rules.parse` and never changed.
+All are frozen dataclasses built once by :mod:`calcscout.rules.loading.load` and never changed.
 Every object that came from a file carries a :class:`Pos` (not part of its
 equality).  Patterns keep the user's binder names (``lam(x.M)``); matching
-turns them into the locally nameless world of :mod:`rules.terms`.
+turns them into the locally nameless world of :mod:`calcscout.rules.core.terms`.
 """
 
 from __future__ import annotations

@@ -2,15 +2,15 @@
 
 An overlap puts one rule's left-hand side at a non-metavariable position of
 another's (or the same rule's, except at the root) and unifies them
-(:mod:`rules.unify`).  Left-hand sides with a plugged context ``E[P]`` are
+(:mod:`calcscout.rules.critical_pairs.unify`).  Left-hand sides with a plugged context ``E[P]`` are
 first unfolded through the context's grammar, up to :data:`CONTEXT_DEPTH`
 frames: overlaps that need a deeper context are not found, and reports say so.
 
-The pair's terms are *symbolic*: interned terms (:mod:`rules.terms`) of an
+The pair's terms are *symbolic*: interned terms (:mod:`calcscout.rules.core.terms`) of an
 extended calculus in which each metavariable ``X`` is a constructor ``?X``
 whose arguments are the bound names ``X`` may see, an opaque member of the
 sorts ``X`` is guaranteed to have.  So the rewriting engine
-(:mod:`rules.rewrite`) computes both sides of a pair, and joins them, on
+(:mod:`calcscout.rules.rewriting.rewrite`) computes both sides of a pair, and joins them, on
 these terms unchanged.  A substitution pending on a metavariable,
 ``M[x := N]``, is ``?M(N)``: the explicit substitution ``M⟨x := N⟩`` of
 Abadi, Cardelli, Curien and Lévy ("Explicit substitutions", JFP 1991) in
@@ -40,11 +40,9 @@ import itertools
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass, field
 
-from .enumerate import enumerate_tuples
-from .match import _context_alts
-from .rewrite import join, reducts, root_reducts
-from .sorts import grammar
-from .spec import (
+from calcscout.rules.core.enumerate import enumerate_tuples
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import (
     AltCon,
     AltNames,
     Arg,
@@ -61,8 +59,30 @@ from .spec import (
     Sort,
     base_meta,
 )
-from .terms import Bound, Name, Node, Term, bound, close, fresh_name, name, node, open_body
-from .unify import MetaInfo, UBound, UMeta, UName, UNode, UTerm, from_pattern, unify
+from calcscout.rules.core.terms import (
+    Bound,
+    Name,
+    Node,
+    Term,
+    bound,
+    close,
+    fresh_name,
+    name,
+    node,
+    open_body,
+)
+from calcscout.rules.critical_pairs.unify import (
+    MetaInfo,
+    UBound,
+    UMeta,
+    UName,
+    UNode,
+    UTerm,
+    from_pattern,
+    unify,
+)
+from calcscout.rules.rewriting.match import _context_alts
+from calcscout.rules.rewriting.rewrite import join, reducts, root_reducts
 
 #: Context frames unfolded in a left-hand side ``E[P]`` when looking for overlaps.
 CONTEXT_DEPTH = 2
@@ -616,7 +636,7 @@ def _cons_in(t: Term) -> list[str]:
 
 
 def _first_index(t: Term, con: str) -> int:
-    from .terms import subterms
+    from calcscout.rules.core.terms import subterms
 
     for i, (_, s) in enumerate(subterms(t)):
         if isinstance(s, Node) and s.con == con:
@@ -773,7 +793,7 @@ def critical_pairs(calc: Calculus, group: str | None = None) -> list[CriticalPai
     left-hand side at each constructor position of each left-hand side, the
     root overlap of a rule with itself excluded.
 
-    >>> from rules.parse import load_text
+    >>> from calcscout.rules.loading.load import load_text
     >>> spec = load_text('''calculus c { sort t M N ::= a | b | f(M)
     ...   rule r1: f(a) -> b
     ...   rule r2: a -> b }''')
@@ -796,7 +816,7 @@ def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None) -> di
         if j.common is not None and j.how == "symbolic":
             entry["common"] = p.show(j.common)
         if j.instance is not None:
-            from .notation import print_abstract
+            from calcscout.rules.notation.notation import print_abstract
 
             entry["instance"] = {k: print_abstract(calc, t)
                                  for k, t in zip(("peak", "left", "right"), j.instance,

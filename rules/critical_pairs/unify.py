@@ -23,7 +23,7 @@ Two occurrences of metavariables meet in the names both may see
 (``X(a) =?= Y(b)``: ``X, Y := Z(a ∩ b)``).
 
 Sorts restrict metavariables.  A metavariable carries the set of automaton
-states (:mod:`rules.sorts`) its value may have, so two metavariables of
+states (:mod:`calcscout.rules.core.sorts`) its value may have, so two metavariables of
 overlapping sorts meet in the intersection of their state sets, which is the
 intersection of the sorts.  After the syntactic unifier is found, the sort
 constraints (``X := t`` needs ``state(t)`` among ``X``'s states) are solved
@@ -39,9 +39,9 @@ import itertools
 from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
-from .match import binder_sorts
-from .sorts import EMPTY, Grammar, State, grammar
-from .spec import Calculus, PAbs, Pattern, PCon, PMeta, PName, Rule, base_meta
+from calcscout.rules.core.sorts import EMPTY, Grammar, State, grammar
+from calcscout.rules.core.spec import Calculus, PAbs, Pattern, PCon, PMeta, PName, Rule, base_meta
+from calcscout.rules.rewriting.match import binder_sorts
 
 # ---------------------------------------------------------------- terms with metavariables
 
@@ -414,9 +414,9 @@ def unify(
     constraints (none: they do not unify).  ``env[i]`` is the names sort of
     bound index ``i`` at the place where ``s`` and ``t`` stand.
 
-    >>> from rules.parse import load_text
+    >>> from calcscout.rules.loading.load import load_text
     >>> calc = load_text("calculus c { sort t M N ::= a | b | f(M, N) }").calculi["c"]
-    >>> from rules.sorts import grammar
+    >>> from calcscout.rules.core.sorts import grammar
     >>> every = frozenset(grammar(calc).states_with("t"))
     >>> metas = {m: MetaInfo(m, "t", states=every) for m in ("X", "Y")}
     >>> [u] = unify(calc, UNode("f", (UMeta("X"), UNode("b")), (0, 0)),

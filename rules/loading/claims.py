@@ -13,8 +13,8 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING
 
-from .sorts import grammar
-from .spec import (
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import (
     Atom,
     Calculus,
     Claim,
@@ -32,10 +32,10 @@ from .spec import (
     base_meta,
     functions_named,
 )
-from .syntax import RawAtom, RawClaim, RawExpr
+from calcscout.rules.loading.syntax import RawAtom, RawClaim, RawExpr
 
 if TYPE_CHECKING:
-    from .load import Loader
+    from calcscout.rules.loading.load import Loader
 
 SHORTHANDS = ("galois", "reflection", "isomorphism")
 PREMISE_RELATIONS = ("->", "->*", "->+", "->=")

@@ -14,8 +14,8 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from .sorts import Grammar
-from .spec import AltCon, AltNames, AltSort, PAbs, Pattern, PCon, PMeta, PName
+from calcscout.rules.core.sorts import Grammar
+from calcscout.rules.core.spec import AltCon, AltNames, AltSort, PAbs, Pattern, PCon, PMeta, PName
 
 WILD = None  # a wildcard row entry
 

@@ -1,5 +1,5 @@
 """Loading a rule file: includes, then calculi, translations and claims resolved
-into :mod:`rules.spec` objects, with every load-time check of LANGUAGE.md.
+into :mod:`calcscout.rules.core.spec` objects, with every load-time check of LANGUAGE.md.
 
 Problems are collected, not raised one by one, so that a file with several
 mistakes gets them all in one run; :func:`load_file` raises one FileError
@@ -11,11 +11,8 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from . import syntax
-from .claimload import resolve_claims
-from .errors import FileError, Problem
-from .patterns import PatternResolver
-from .spec import (
+from calcscout.rules.core.errors import FileError, Problem
+from calcscout.rules.core.spec import (
     AltCon,
     AltHole,
     AltNames,
@@ -31,8 +28,11 @@ from .spec import (
     Spec,
     base_meta,
 )
-from .syntax import RawCalculus, RawFile, RawTranslation
-from .translations_load import build_translations
+from calcscout.rules.loading import syntax
+from calcscout.rules.loading.claims import resolve_claims
+from calcscout.rules.loading.patterns import PatternResolver
+from calcscout.rules.loading.syntax import RawCalculus, RawFile, RawTranslation
+from calcscout.rules.loading.translations import build_translations
 
 BOUND_KEYS = ("size", "steps", "names", "nodes")
 
@@ -405,7 +405,7 @@ class CalculusBuilder:
         return AltCon(alt.name, tuple(args), notation, alt.pos)
 
     def notation(self, alt, args: list[Arg]) -> Notation | None:
-        from .notation import notation_tokens
+        from calcscout.rules.notation.notation import notation_tokens
 
         raw = alt.notation
         try:

@@ -6,8 +6,8 @@ from __future__ import annotations
 from collections.abc import Iterable
 from typing import TYPE_CHECKING
 
-from .sorts import grammar
-from .spec import (
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import (
     AltCon,
     Calculus,
     Condition,
@@ -24,10 +24,10 @@ from .spec import (
     Shape,
     base_meta,
 )
-from .syntax import RawArg, RawPattern, RawRule
+from calcscout.rules.loading.syntax import RawArg, RawPattern, RawRule
 
 if TYPE_CHECKING:
-    from .load import Loader
+    from calcscout.rules.loading.load import Loader
 
 
 def shape_problem(raw: RawPattern, shape: Shape) -> tuple[str, Pos, str | None] | None:
@@ -165,7 +165,7 @@ class PatternResolver:
         return PAbs(tuple(names), body, a.pattern.pos)
 
     def suggest(self, word: str) -> str | None:
-        from .load import Loader
+        from calcscout.rules.loading.load import Loader
 
         return Loader.suggest(word, [*self.calc.metas, *self.calc.shapes])
 

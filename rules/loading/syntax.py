@@ -1,7 +1,7 @@
 """Reading rule files: bytes -> text -> lark tree -> raw items with positions.
 
-The raw items are what the file says, names not yet resolved; :mod:`rules.load`
-resolves them into :mod:`rules.spec` objects.  Lark trees stay inside this
+The raw items are what the file says, names not yet resolved; :mod:`calcscout.rules.loading.load`
+resolves them into :mod:`calcscout.rules.core.spec` objects.  Lark trees stay inside this
 module.
 """
 
@@ -14,8 +14,8 @@ from pathlib import Path
 from lark import Lark, Token, Tree
 from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput, UnexpectedToken
 
-from .errors import FileError, Problem, remember_source
-from .spec import Pos
+from calcscout.rules.core.errors import FileError, Problem, remember_source
+from calcscout.rules.core.spec import Pos
 
 MAX_FILE_BYTES = 4 * 1024 * 1024
 

@@ -13,10 +13,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
-from .exhaustive import describe, missing_case
-from .patterns import PatternResolver, shape_problem
-from .sorts import State, grammar
-from .spec import (
+from calcscout.rules.core.sorts import State, grammar
+from calcscout.rules.core.spec import (
     Calculus,
     Equation,
     PAbs,
@@ -30,10 +28,12 @@ from .spec import (
     Translation,
     base_meta,
 )
-from .syntax import RawPattern, RawTranslation
+from calcscout.rules.loading.exhaustive import describe, missing_case
+from calcscout.rules.loading.patterns import PatternResolver, shape_problem
+from calcscout.rules.loading.syntax import RawPattern, RawTranslation
 
 if TYPE_CHECKING:
-    from .load import Loader
+    from calcscout.rules.loading.load import Loader
 
 
 def build_translations(raws: dict[str, RawTranslation], calculi: dict[str, Calculus],
@@ -350,7 +350,7 @@ class TranslationBuilder:
         for ``x`` (``ds(klam(k.P)) = ds(P)`` drops a binder): while it is
         translated, ``x`` is a name of its names sort like any other, which the
         equations for names may map away.  If it reaches the result all the same,
-        :mod:`rules.translate` stops with an error naming the equation.
+        :mod:`calcscout.rules.rewriting.translate` stops with an error naming the equation.
         """
         binder_names = _binder_names(pattern)
 

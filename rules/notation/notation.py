@@ -53,9 +53,9 @@ from lark import Lark, Token, Tree
 from lark.exceptions import UnexpectedEOF, UnexpectedInput, UnexpectedToken
 from lark.lexer import Lexer
 
-from .errors import Problem, TermError
-from .spec import AltCon, Calculus, Notation, Pos
-from .terms import Bound, Name, Node, Term, close, name, node
+from calcscout.rules.core.errors import Problem, TermError
+from calcscout.rules.core.spec import AltCon, Calculus, Notation, Pos
+from calcscout.rules.core.terms import Bound, Name, Node, Term, close, name, node
 
 _TOKEN = re.compile(
     r"\s*(?:([A-Za-z_][A-Za-z0-9_]*'*)|([0-9]+)|([()\[\]{},])|([^\sA-Za-z0-9_()\[\]{},]+))"
@@ -321,8 +321,8 @@ class _Namer:
 def print_abstract(calc: Calculus, term: Term) -> str:
     """The abstract form of ``term``: ``lam(x.app(x, y))``, nullary constructors bare.
 
-    >>> from rules.terms import bound, name, node
-    >>> from rules.spec import Calculus
+    >>> from calcscout.rules.core.terms import bound, name, node
+    >>> from calcscout.rules.core.spec import Calculus
     >>> calc = Calculus("c", {}, {}, {}, ())
     >>> print_abstract(calc, node("lam", [node("app", [bound(0), name("y")])], [1]))
     'lam(x.app(x, y))'
@@ -796,7 +796,7 @@ def parse_term(calc: Calculus, text: str, file: str = "<command line>") -> Term:
     """An object term of ``calc`` written on the command line, in abstract form,
     with the calculus's notations, or both mixed.
 
-    Raises :class:`~rules.errors.TermError` with the column of the offending
+    Raises :class:`~calcscout.rules.core.errors.TermError` with the column of the offending
     token and what was expected there.
     """
     return _parser(calc).parse(text, file)

@@ -1,4 +1,4 @@
-"""Instantiating a right-hand side under a binding found by :mod:`rules.match`.
+"""Instantiating a right-hand side under a binding found by :mod:`calcscout.rules.rewriting.match`.
 
 Everything matching opened is closed again here: an abstraction ``x.P``
 whose ``x`` the left-hand side bound closes over the name ``x`` was bound to,
@@ -6,8 +6,8 @@ plugging into a context closes the context's binders over the names that
 opened them, and a substitution ``P[x := Q]`` replaces the name ``x`` stands
 for.  A binder name the left-hand side did not bind is fresh.
 
->>> from rules.spec import Calculus, NamesSort, Shape, PCon, PAbs, PName, PMeta
->>> from rules.terms import name, debug_str
+>>> from calcscout.rules.core.spec import Calculus, NamesSort, Shape, PCon, PAbs, PName, PMeta
+>>> from calcscout.rules.core.terms import name, debug_str
 >>> calc = Calculus("c", {"var": NamesSort("var", ("x",))}, {},
 ...                 {"lam": Shape("lam", (("var",),)), "app": Shape("app", ((), ()))}, ())
 >>> rhs = PCon("lam", (PAbs(("k",), PCon("app", (PName("k", "var"), PMeta("M", "term")))),))
@@ -19,9 +19,9 @@ from __future__ import annotations
 
 from collections.abc import Callable, Sequence
 
-from .match import Binding, Context, binding_names
-from .spec import Calculus, PAbs, Pattern, PCall, PCon, PMeta, PName, PPlug, PSubst
-from .terms import Name, Term, close, fresh_name, name, node, substitute
+from calcscout.rules.core.spec import Calculus, PAbs, Pattern, PCall, PCon, PMeta, PName, PPlug, PSubst
+from calcscout.rules.core.terms import Name, Term, close, fresh_name, name, node, substitute
+from calcscout.rules.rewriting.match import Binding, Context, binding_names
 
 Call = Callable[[str, Sequence[Term]], Term]
 

@@ -1,8 +1,8 @@
 """Matching spec patterns against interned terms: sorts, binders, contexts, conditions.
 
 A :data:`Binding` maps metavariables as written (``M``, ``V1``, ``x``, ``E``)
-to values: a :class:`~rules.terms.Term` for a sort metavariable, a
-:class:`~rules.terms.Name` for a names metavariable, a :class:`Context` for a
+to values: a :class:`~calcscout.rules.core.terms.Term` for a sort metavariable, a
+:class:`~calcscout.rules.core.terms.Name` for a names metavariable, a :class:`Context` for a
 context metavariable.
 
 Binders are opened, never matched as indices: matching ``lam(x.M)`` opens the
@@ -14,9 +14,9 @@ instantiating a right-hand side closes over it again.  In locally nameless
 form this is the scope check of higher-order patterns (Miller 1991): a
 metavariable may mention exactly the names bound above it.
 
->>> from rules.spec import Calculus, NamesSort, Sort, Shape, AltNames, AltCon, Arg
->>> from rules.spec import PCon, PAbs, PMeta
->>> from rules.terms import node, bound, name
+>>> from calcscout.rules.core.spec import Calculus, NamesSort, Sort, Shape, AltNames, AltCon, Arg
+>>> from calcscout.rules.core.spec import PCon, PAbs, PMeta
+>>> from calcscout.rules.core.terms import node, bound, name
 >>> calc = Calculus("c", {"var": NamesSort("var", ("x",))},
 ...     {"term": Sort("term", ("M", "N"), (AltNames("var"),
 ...         AltCon("lam", (Arg(("var",), "term"),)), AltCon("app", (Arg((), "term"),) * 2)))},
@@ -32,8 +32,8 @@ from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass
 from functools import cached_property
 
-from .sorts import Grammar, grammar
-from .spec import (
+from calcscout.rules.core.sorts import Grammar, grammar
+from calcscout.rules.core.spec import (
     AltCon,
     AltHole,
     AltSort,
@@ -48,7 +48,7 @@ from .spec import (
     PSubst,
     Rule,
 )
-from .terms import (
+from calcscout.rules.core.terms import (
     Bound,
     Name,
     Node,

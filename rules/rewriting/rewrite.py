@@ -11,9 +11,9 @@ the start and ``nodes`` terms in all, and says whether it saw everything
 (``complete``) or which bound cut it (``cut_by``).  The graph is a
 ``networkx.DiGraph`` whose nodes are interned terms.
 
->>> from rules.spec import (Calculus, NamesSort, Sort, Shape, AltNames, AltCon, Arg,
+>>> from calcscout.rules.core.spec import (Calculus, NamesSort, Sort, Shape, AltNames, AltCon, Arg,
 ...     Rule, PCon, PAbs, PMeta, PSubst, PName)
->>> from rules.terms import node, bound, name, debug_str
+>>> from calcscout.rules.core.terms import node, bound, name, debug_str
 >>> app = lambda m, n: node("app", (m, n))
 >>> lam = lambda body: node("lam", (body,), (1,))
 >>> M, N = PMeta("M", "term"), PMeta("N", "term")
@@ -43,11 +43,22 @@ from dataclasses import dataclass, field
 
 import networkx as nx
 
-from .errors import FileError
-from .instantiate import build
-from .match import binder_sorts, check_conditions, decompositions, match
-from .spec import Calculus, PAbs, Pattern, PCon, PName, Rule
-from .terms import Bound, Name, Node, Term, close, fresh_name, is_internal, name, node, open_body
+from calcscout.rules.core.errors import FileError
+from calcscout.rules.core.spec import Calculus, PAbs, Pattern, PCon, PName, Rule
+from calcscout.rules.core.terms import (
+    Bound,
+    Name,
+    Node,
+    Term,
+    close,
+    fresh_name,
+    is_internal,
+    name,
+    node,
+    open_body,
+)
+from calcscout.rules.rewriting.instantiate import build
+from calcscout.rules.rewriting.match import binder_sorts, check_conditions, decompositions, match
 
 Graph = nx.DiGraph
 

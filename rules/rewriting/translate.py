@@ -11,7 +11,7 @@ A translation with ``then normalize GROUP`` gives, for a call from outside
 of what the equations built; when there is none within the bounds, or more
 than one, the translation is undefined there and :class:`Undefined` says why.
 
->>> from rules.parse import load_text
+>>> from calcscout.rules.loading.load import load_text
 >>> spec = load_text('''
 ... calculus c { names var x y
 ...   sort term M N ::= x | lam(x.M) | app(M, N) }
@@ -19,7 +19,7 @@ than one, the translation is undefined there and :class:`Undefined` says why.
 ...   dup(x) = x
 ...   dup(lam(x.M)) = lam(x. dup(M))
 ...   dup(app(M, N)) = app(dup(M), app(dup(N), dup(N))) }''')
->>> from rules.notation import parse_term, print_abstract
+>>> from calcscout.rules.notation.notation import parse_term, print_abstract
 >>> c = spec.calculi["c"]
 >>> print_abstract(c, Translator(spec, spec.translations["dup"]).apply("dup", parse_term(c, "app(x, y)")))
 'app(x, app(y, y))'
@@ -30,12 +30,12 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass
 
-from .errors import CalcError
-from .instantiate import build
-from .match import match
-from .rewrite import normal_forms, reduction_graph
-from .spec import Bounds, Calculus, Pos, Spec, Translation
-from .terms import Term, is_internal
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.spec import Bounds, Calculus, Pos, Spec, Translation
+from calcscout.rules.core.terms import Term, is_internal
+from calcscout.rules.rewriting.instantiate import build
+from calcscout.rules.rewriting.match import match
+from calcscout.rules.rewriting.rewrite import normal_forms, reduction_graph
 
 MEMO_LIMIT = 500_000
 
@@ -101,13 +101,13 @@ class Translator:
                     self._memo.clear()
                 self._memo[key] = result
                 return result
-        from .notation import print_abstract
+        from calcscout.rules.notation.notation import print_abstract
 
         raise TranslationFailure(self.tr, fn, print_abstract(self.source, term))
 
     def _check_escape(self, eq, term: Term, result: Term, avoid: set[str]) -> None:
         """A name this equation's match opened must not survive into its result."""
-        from .notation import print_abstract
+        from calcscout.rules.notation.notation import print_abstract
 
         outside = set(term.free) | avoid
         escaped = [n for n in result.free if is_internal(n) and n not in outside]
@@ -164,7 +164,7 @@ class NormalizeError(CalcError):
     exit_code = 3
 
     def __init__(self, translator: Translator, why: Undefined):
-        from .notation import print_term
+        from calcscout.rules.notation.notation import print_term
 
         tr = translator.tr
         calc = translator.target

@@ -17,11 +17,11 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent.parent))
 
-from obligations.runner import RunOptions, run_claims  # noqa: E402
-from rules.enumerate import enumerate_terms  # noqa: E402
-from rules.parse import load_file  # noqa: E402
-from rules.spec import Bounds  # noqa: E402
-from rules.translate import Translator  # noqa: E402
+from calcscout.obligations.runner import RunOptions, run_claims  # noqa: E402
+from calcscout.rules.core.enumerate import enumerate_terms  # noqa: E402
+from calcscout.rules.core.spec import Bounds  # noqa: E402
+from calcscout.rules.loading.load import load_file  # noqa: E402
+from calcscout.rules.rewriting.translate import Translator  # noqa: E402
 
 PLOTKIN = HERE.parent / "data" / "translate" / "plotkin.calc"
 CLAIMS = f"""include "{PLOTKIN}"

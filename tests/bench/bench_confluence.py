@@ -24,11 +24,11 @@ sys.path.insert(0, str(ROOT))
 import dataclasses  # noqa: E402
 import gc  # noqa: E402
 
-from obligations.confluence import decide_confluent, decide_terminating  # noqa: E402
-from rules.notation import parse_term  # noqa: E402
-from rules.parse import load_file  # noqa: E402
-from rules.rewrite import reduction_graph  # noqa: E402
-from rules.spec import Bounds  # noqa: E402
+from calcscout.obligations.engines.confluence import decide_confluent, decide_terminating  # noqa: E402
+from calcscout.rules.core.spec import Bounds  # noqa: E402
+from calcscout.rules.loading.load import load_file  # noqa: E402
+from calcscout.rules.notation.notation import parse_term  # noqa: E402
+from calcscout.rules.rewriting.rewrite import reduction_graph  # noqa: E402
 
 LAMBDA = ROOT / "rules" / "library" / "lambda.calc"
 # y applied to six copies of (\x. x x x) (\x. x x x): each copy is an endless chain of
@@ -69,7 +69,7 @@ def main() -> None:
     n, e = g.number_of_nodes(), g.number_of_edges()
     print(f"\nreduction graph of {BIG}:\n  {n} terms, {e} edges, cut by {g.graph['cut_by']}, "
           f"{dt:.2f} s, {n / dt:,.0f} terms/s, {e / dt:,.0f} edges/s")
-    from obligations.confluence import paused_gc
+    from calcscout.obligations.engines.confluence import paused_gc
 
     fresh = dataclasses.replace(calc)
     term = parse_term(fresh, BIG)

@@ -17,8 +17,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 sys.path.insert(0, str(ROOT))
 
-from rules.enumerate import count_terms, enumerate_terms  # noqa: E402
-from rules.parse import load_file  # noqa: E402
+from calcscout.rules.core.enumerate import count_terms, enumerate_terms  # noqa: E402
+from calcscout.rules.loading.load import load_file  # noqa: E402
 
 DATA = ROOT / "tests" / "data" / "enum"
 

@@ -35,7 +35,7 @@ from calcscout.rules.core.spec import (
 from calcscout.rules.loading.syntax import RawAtom, RawClaim, RawExpr
 
 if TYPE_CHECKING:
-    from calcscout.rules.loading.load import Loader
+    from calcscout.rules.loading.diagnostics import Diagnostics
 
 SHORTHANDS = ("galois", "reflection", "isomorphism")
 PREMISE_RELATIONS = ("->", "->*", "->+", "->=")
@@ -46,7 +46,7 @@ class _Bad(Exception):
 
 
 def resolve_claims(raws: list[RawClaim], calculi: dict[str, Calculus],
-                   translations: dict[str, Translation], loader: Loader,
+                   translations: dict[str, Translation], loader: Diagnostics,
                    broken: set[str] | frozenset[str] = frozenset()) -> list[Claim]:
     """``broken``: translations that failed to load (their errors are reported already, so
     claims that use them are skipped without a second message)."""
@@ -64,7 +64,7 @@ def resolve_claims(raws: list[RawClaim], calculi: dict[str, Calculus],
 
 class ClaimResolver:
     def __init__(self, raw: RawClaim, calculi: dict[str, Calculus],
-                 translations: dict[str, Translation], loader: Loader):
+                 translations: dict[str, Translation], loader: Diagnostics):
         self.raw = raw
         self.calculi = calculi
         self.translations = translations

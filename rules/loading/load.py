@@ -11,14 +11,13 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from calcscout.rules.core.errors import FileError, Problem
+from calcscout.rules.core.errors import FileError
 from calcscout.rules.core.spec import (
     AltCon,
     AltHole,
     AltNames,
     AltSort,
     Arg,
-    Bounds,
     Calculus,
     NamesSort,
     Notation,
@@ -30,11 +29,10 @@ from calcscout.rules.core.spec import (
 )
 from calcscout.rules.loading import syntax
 from calcscout.rules.loading.claims import resolve_claims
+from calcscout.rules.loading.diagnostics import Diagnostics
 from calcscout.rules.loading.patterns import PatternResolver
 from calcscout.rules.loading.syntax import RawCalculus, RawFile, RawTranslation
 from calcscout.rules.loading.translations import build_translations
-
-BOUND_KEYS = ("size", "steps", "names", "nodes")
 
 
 def load_file(path: str | os.PathLike) -> Spec:
@@ -47,19 +45,12 @@ def load_text(text: str, file: str = "<text>") -> Spec:
     return Loader().load(Path(file), text=text)
 
 
-class Loader:
+class Loader(Diagnostics):
     def __init__(self) -> None:
-        self.problems: list[Problem] = []
+        super().__init__()
         self.files: list[RawFile] = []
         self.seen: set[Path] = set()
         self.top: Path | None = None
-
-    def error(self, message: str, pos: Pos | None, hint: str | None = None) -> None:
-        self.problems.append(Problem(message, pos, hint))
-
-    def fail_if_problems(self) -> None:
-        if self.problems:
-            raise FileError(self.problems)
 
     # ------------------------------------------------------------ files
 
@@ -146,20 +137,6 @@ class Loader:
         return Spec(self.shown(self.top) if self.top else "", calculi, translations,
                     tuple(claims), bounds, tuple(f.path for f in self.files), file_bounds)
 
-    def bounds(self, items: list[tuple[str, int, Pos]]) -> Bounds:
-        values: dict[str, int] = {}
-        for key, value, pos in items:
-            if key not in BOUND_KEYS:
-                self.error(f"unknown bound {key!r}", pos,
-                           hint="the bounds are size, steps, names and nodes")
-                continue
-            least = 0 if key == "names" else 1
-            if value < least:
-                self.error(f"the bound {key} must be at least {least}, not {value}", pos)
-                continue
-            values[key] = value
-        return Bounds(**values)
-
     # ------------------------------------------------------------ calculi
 
     def build_calculus(self, name: str, raws: dict[str, RawCalculus],
@@ -184,13 +161,6 @@ class Loader:
         if calc is not None:
             done[name] = calc
         return calc
-
-    @staticmethod
-    def suggest(word: str, options) -> str | None:
-        import difflib
-
-        close = difflib.get_close_matches(word, list(options), n=1)
-        return f"did you mean {close[0]}?" if close else None
 
 
 class CalculusBuilder:

@@ -27,7 +27,7 @@ from calcscout.rules.core.spec import (
 from calcscout.rules.loading.syntax import RawArg, RawPattern, RawRule
 
 if TYPE_CHECKING:
-    from calcscout.rules.loading.load import Loader
+    from calcscout.rules.loading.diagnostics import Diagnostics
 
 
 def shape_problem(raw: RawPattern, shape: Shape) -> tuple[str, Pos, str | None] | None:
@@ -49,7 +49,7 @@ def shape_problem(raw: RawPattern, shape: Shape) -> tuple[str, Pos, str | None] 
 class PatternResolver:
     """Resolves raw patterns against one calculus."""
 
-    def __init__(self, calc: Calculus, loader: Loader):
+    def __init__(self, calc: Calculus, loader: Diagnostics):
         self.calc = calc
         self.loader = loader
         self.ok = True
@@ -165,9 +165,7 @@ class PatternResolver:
         return PAbs(tuple(names), body, a.pattern.pos)
 
     def suggest(self, word: str) -> str | None:
-        from calcscout.rules.loading.load import Loader
-
-        return Loader.suggest(word, [*self.calc.metas, *self.calc.shapes])
+        return self.loader.suggest(word, [*self.calc.metas, *self.calc.shapes])
 
     # ------------------------------------------------------------ rules
 

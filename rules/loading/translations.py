@@ -33,18 +33,18 @@ from calcscout.rules.loading.patterns import PatternResolver, shape_problem
 from calcscout.rules.loading.syntax import RawPattern, RawTranslation
 
 if TYPE_CHECKING:
-    from calcscout.rules.loading.load import Loader
+    from calcscout.rules.loading.diagnostics import Diagnostics
 
 
 def build_translations(raws: dict[str, RawTranslation], calculi: dict[str, Calculus],
-                       loader: Loader) -> dict[str, Translation]:
+                       loader: Diagnostics) -> dict[str, Translation]:
     done: dict[str, Translation] = {}
     for name in raws:
         _build(name, raws, calculi, loader, done, [])
     return done
 
 
-def _chain(name: str, raws: dict[str, RawTranslation], loader: Loader,
+def _chain(name: str, raws: dict[str, RawTranslation], loader: Diagnostics,
            stack: list[str]) -> list[RawTranslation] | None:
     """The translation and the ones it extends, itself first."""
     raw = raws[name]
@@ -82,7 +82,7 @@ def _build(name, raws, calculi, loader, done, stack) -> Translation | None:
     return tr
 
 
-def _calc(ref: tuple[str, Pos], calculi: dict[str, Calculus], loader: Loader) -> Calculus | None:
+def _calc(ref: tuple[str, Pos], calculi: dict[str, Calculus], loader: Diagnostics) -> Calculus | None:
     name, pos = ref
     c = calculi.get(name)
     if c is None:
@@ -92,7 +92,7 @@ def _calc(ref: tuple[str, Pos], calculi: dict[str, Calculus], loader: Loader) ->
 
 class TranslationBuilder:
     def __init__(self, raw: RawTranslation, chain: list[RawTranslation], src: Calculus,
-                 dst: Calculus, loader: Loader):
+                 dst: Calculus, loader: Diagnostics):
         self.raw = raw
         self.chain = chain
         self.src = src

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Sequence
 from pathlib import Path
 
 import z3
@@ -46,17 +47,16 @@ def obligation_query(spec: Spec, ob, bounds: Bounds, ctx: z3.Context, upto: int 
     return enc, facts, lits, envs
 
 
-def export_obligations(spec: Spec, claim: Claim, bounds: Bounds, out_dir: str | os.PathLike
-                       ) -> list[Path]:
+def export_obligations(spec: Spec, claim: Claim, obligations: Sequence, bounds: Bounds,
+                       out_dir: str | os.PathLike) -> list[Path]:
     """Write one ``.smt2`` file per encodable obligation of ``claim`` into ``out_dir``.
 
+    ``obligations`` are the claim's obligations as the caller planned them (the
+    claim's own, then its parts; ``normalize(T)`` parts are not encoded).
     ``bounds`` are the effective bounds (size and names matter). Raises
     :class:`~calcscout.rules.core.errors.EncodingError` when no obligation of the claim can be encoded.
     """
-    from calcscout.obligations.claims import plan
-
-    p = plan(spec, claim)
-    obs = ([p.head] if p.head else []) + [o for o in p.parts if o.normalizes is None]
+    obs = [o for o in obligations if o.normalizes is None]
     out = Path(out_dir)
     written: list[Path] = []
     reasons: list[str] = []

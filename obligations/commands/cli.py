@@ -395,6 +395,7 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
     `calcscout explain --model SOLVER_OUTPUT FILE.smt2`.
     """
     from calcscout.encoders.smtlib import export_obligations
+    from calcscout.obligations.claims import plan
 
     spec = load(file)
     claim = next((c for c in spec.claims if c.name == claim_name), None)
@@ -402,7 +403,7 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
         raise UsageError(f"no claim {claim_name} in {spec.file}",
                          hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
     b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
-    for path in export_obligations(spec, claim, b, out_dir):
+    for path in export_obligations(spec, claim, plan(spec, claim).obligations, b, out_dir):
         click.echo(str(path))
 
 

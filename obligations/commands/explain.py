@@ -93,4 +93,7 @@ def explain_model(model_path: str, smt2_path: str) -> str:
     except ImportError:
         raise UsageError("explain --model needs the SMT engine, which this build does not "
                          "include yet") from None
-    return run(model_path, smt2_path)
+    from calcscout.obligations.claims import plan
+    from calcscout.obligations.engines.smt import case_judge
+
+    return run(model_path, smt2_path, lambda spec, claim: plan(spec, claim).obligations, case_judge)

@@ -125,6 +125,12 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
     return v
 
 
+def case_judge(spec: Spec, ob: Obligation, bounds: Bounds) -> _Judge:
+    """The rewriting engine's decision of the cases a solver finds for ``ob``
+    (``explain --model`` hands it to the encoders, which may not import it)."""
+    return _Judge(spec, ob, bounds)
+
+
 class _Judge:
     """The rewriting engine's decision of one case found by the solver."""
 

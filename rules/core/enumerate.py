@@ -176,7 +176,7 @@ def _strided(blocks: Iterable[Block], start: int, stride: int) -> Iterator:
         pos = end
 
 
-def _size_block(top: _Slot, n: int, used: Used) -> Callable[[int, int], Iterator]:
+def _size_block(top: _TupleSlot, n: int, used: Used) -> Callable[[int, int], Iterator]:
     return lambda start, stride: top.enum.gen_strided(top.cls, n, (), top.enum.zero_env,
                                                       used, start, stride)
 
@@ -211,11 +211,11 @@ class _Space:
         self.memo: dict[tuple, list[Item]] = {}
         self.memo_left = MEMO_BUDGET
 
-    def slot(self, calc: Calculus, sort: str) -> _Slot:
+    def slot(self, calc: Calculus, sort: str) -> _TupleSlot:
         enum = self.enums.get(id(calc))
         if enum is None:
             enum = self.enums[id(calc)] = _Enum(calc, self)
-        return _Slot(enum, enum.sort_class(sort))
+        return _TupleSlot(enum, enum.sort_class(sort))
 
     # A spec is (enum, class, env, envc): one child to fill; its count spec is
     # (enum, class, envc), since counts do not depend on the order of env.
@@ -316,7 +316,7 @@ def _names_key(ns: str, metas: tuple[str, ...]) -> tuple[str, ...]:
     return metas or (ns,)
 
 
-class _Slot:
+class _TupleSlot:
     __slots__ = ("enum", "cls")
 
     def __init__(self, enum: _Enum, cls: tuple[int, ...]):

@@ -52,9 +52,9 @@ class NamesSort:
 
 @dataclass(frozen=True)
 class Arg:
-    """One argument of a constructor alternative: ``x.y.M`` is binders (var, var), sort term."""
+    """One argument of a constructor alternative: ``x.y.M`` is binder_sorts (var, var), sort term."""
 
-    binders: tuple[str, ...]  # names sorts of the bound names, outermost first
+    binder_sorts: tuple[str, ...]  # names sorts of the bound names, outermost first
     sort: str
     binder_metas: tuple[str, ...] = ()  # the names metavariables as written (x, y)
     meta: str = ""  # the argument's metavariable as written (M)

@@ -133,7 +133,7 @@ def _find_alt(calc: Calculus, con: str, args) -> AltCon | None:
     for s in calc.sorts.values():
         for alt in s.alts:
             if isinstance(alt, AltCon) and alt.con == con and \
-                    tuple((a.binders, a.sort) for a in alt.args) == args:
+                    tuple((a.binder_sorts, a.sort) for a in alt.args) == args:
                 return alt
     return None
 

@@ -59,7 +59,7 @@ def _heads(g: Grammar, sort: str) -> list[tuple[str, tuple[str, ...], tuple[tupl
                     out.append(key)
             elif isinstance(alt, AltCon):
                 key = (alt.con, tuple(a.sort for a in alt.args),
-                       tuple(a.binders for a in alt.args))
+                       tuple(a.binder_sorts for a in alt.args))
                 if key not in out:
                     out.append(key)
     return out

@@ -178,7 +178,7 @@ def _form_of(alt: AltCon, notation: Notation) -> _Form | None:
             items.append(_Item("binder", tok, binds=binds, space_before=space))
         else:
             items.append(_Item("lit", tok, space_before=space))
-    every_binder = {(i, j) for i, a in enumerate(alt.args) for j in range(len(a.binders))}
+    every_binder = {(i, j) for i, a in enumerate(alt.args) for j in range(len(a.binder_sorts))}
     if seen_args != set(range(len(alt.args))) or seen_binders != every_binder:
         return None
     lead = items[0].kind == "arg"
@@ -221,7 +221,7 @@ class _Reading:
                 if form is None:
                     continue
                 shape = calc.shapes.get(alt.con)
-                if shape is not None and shape.binders != tuple(len(a.binders) for a in alt.args):
+                if shape is not None and shape.binders != tuple(len(a.binder_sorts) for a in alt.args):
                     continue
                 if all(f.items != form.items or f.con != form.con for f in self.forms):
                     self.forms.append(form)
@@ -245,7 +245,7 @@ class _Reading:
         if shape is not None:
             return shape.binders
         alt = self.alt_of.get(con)
-        return None if alt is None else tuple(len(a.binders) for a in alt.args)
+        return None if alt is None else tuple(len(a.binder_sorts) for a in alt.args)
 
     def shape_text(self, con: str) -> str:
         """``let(M, x.N)``: a constructor's shape as the calculus declares it."""
@@ -266,8 +266,8 @@ class _Reading:
         if shape is not None and arg < shape.arity and j < len(shape.binder_sorts[arg]):
             return shape.binder_sorts[arg][j]
         alt = self.alt_of.get(con)
-        if alt is not None and arg < len(alt.args) and j < len(alt.args[arg].binders):
-            return alt.args[arg].binders[j]
+        if alt is not None and arg < len(alt.args) and j < len(alt.args[arg].binder_sorts):
+            return alt.args[arg].binder_sorts[j]
         return next(iter(self.calc.names_sorts), None)
 
 

@@ -195,7 +195,7 @@ def _context_alts(calc: Calculus, sort: str) -> _ContextAlts:
                 ]
                 if len(holes) != 1:
                     raise ValueError(f"context alternative {alt.con} needs exactly one hole")
-                args = tuple((a.binders, a.sort) for a in alt.args)
+                args = tuple((a.binder_sorts, a.sort) for a in alt.args)
                 entry = (alt.con, holes[0], alt.args[holes[0]].sort, args)
                 if entry not in cons:
                     cons.append(entry)

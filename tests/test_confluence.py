@@ -3,27 +3,16 @@ conditions hold, bounded search with re-checked counterexamples elsewhere."""
 
 from __future__ import annotations
 
-from functools import cache
-from pathlib import Path
-
 import networkx as nx
 import pytest
+from conftest import load_spec as spec
 
 from calcscout.obligations.engines.confluence import confluence_theorem, decide_confluent, decide_terminating
 from calcscout.rules.core.errors import CalcError
-from calcscout.rules.core.spec import Bounds, Confluent, Spec, Terminating
-from calcscout.rules.loading.load import load_file, load_text
+from calcscout.rules.core.spec import Bounds, Confluent, Terminating
+from calcscout.rules.loading.load import load_text
 from calcscout.rules.notation.notation import parse_term
 from calcscout.rules.rewriting.rewrite import reduction_graph, reducts
-
-DATA = Path(__file__).parent / "data"
-LIBRARY = Path(__file__).parent.parent / "rules" / "library"
-
-
-@cache
-def spec(file: str) -> Spec:
-    path = LIBRARY / file if (LIBRARY / file).exists() else DATA / file
-    return load_file(path)
 
 
 def bounds(size=6, steps=10, names=1, nodes=20000) -> Bounds:

@@ -3,9 +3,9 @@ by hand, and the smallest-counterexample promise checked against an independent 
 
 from __future__ import annotations
 
-from pathlib import Path
-
+import conftest
 import pytest
+from conftest import verdicts_of
 
 from calcscout.obligations.runner import RunOptions, run_claims
 from calcscout.rules.core.enumerate import count_tuples, enumerate_tuples
@@ -13,7 +13,7 @@ from calcscout.rules.core.spec import Bounds
 from calcscout.rules.core.terms import Term
 from calcscout.rules.loading.load import load_file
 
-DATA = Path(__file__).parent / "data" / "engine"
+DATA = conftest.DATA / "engine"
 
 
 @pytest.fixture(scope="module")
@@ -23,8 +23,7 @@ def spec():
 
 @pytest.fixture(scope="module")
 def verdicts(spec):
-    out, _ = run_claims(spec, list(spec.claims), RunOptions())
-    return {v.name: v for v in out}
+    return verdicts_of(spec)
 
 
 def test_true_claims_hold_with_the_number_of_cases(spec, verdicts) -> None:

@@ -15,8 +15,10 @@ import tracemalloc
 from collections import Counter
 from pathlib import Path
 
+import conftest
 import pytest
 import sympy
+from conftest import load_spec
 
 from calcscout.rules.core.enumerate import (
     count_by_size,
@@ -28,13 +30,12 @@ from calcscout.rules.core.enumerate import (
 from calcscout.rules.core.sorts import grammar
 from calcscout.rules.core.spec import Calculus
 from calcscout.rules.core.terms import Name, Node, Term, bound, name, node
-from calcscout.rules.loading.load import load_file
 
-DATA = Path(__file__).parent / "data" / "enum"
+DATA = conftest.DATA / "enum"
 
 
 def _load(file: str) -> dict[str, Calculus]:
-    return load_file(DATA / file).calculi
+    return load_spec(DATA / file).calculi
 
 
 @pytest.fixture(scope="module")

@@ -3,17 +3,14 @@ contexts (also with the hole under a binder), conditions, instantiation."""
 
 from __future__ import annotations
 
-from functools import cache
-from pathlib import Path
-
+import conftest
 import pytest
+from conftest import load_calc, term
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from calcscout.rules.core.spec import Calculus, PAbs, PCon, PMeta, PName, PPlug, Rule
 from calcscout.rules.core.terms import Name, Node, Term, bound, is_internal, name, node
-from calcscout.rules.loading.load import load_file
-from calcscout.rules.notation.notation import parse_term
 from calcscout.rules.rewriting.instantiate import build
 from calcscout.rules.rewriting.match import (
     Context,
@@ -24,16 +21,11 @@ from calcscout.rules.rewriting.match import (
     rule_matches,
 )
 
-DATA = Path(__file__).parent / "data" / "rewrite"
+DATA = conftest.DATA / "rewrite"
 
 
-@cache
 def calc(file: str, name_: str) -> Calculus:
-    return load_file(DATA / file).calculi[name_]
-
-
-def term(c: Calculus, text: str) -> Term:
-    return parse_term(c, text)
+    return load_calc(DATA / file, name_)
 
 
 def rule(c: Calculus, rule_name: str) -> Rule:

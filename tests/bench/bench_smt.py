@@ -16,13 +16,11 @@ from __future__ import annotations
 
 import argparse
 import multiprocessing
-import sys
 import tempfile
 import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(ROOT))
 
 FIXTURE = ROOT / "tests" / "data" / "smt" / "cps.calc"
 

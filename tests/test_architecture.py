@@ -124,3 +124,16 @@ def test_the_checks_see_the_imports():
     assert len(MODULES) > 40
     assert ("calcscout.obligations.runner", "calcscout.obligations.engines.enumeration") in g.edges
     assert ("calcscout.rules.rewriting.rewrite", "calcscout.rules.core.terms") in g.edges
+
+
+def test_no_bare_copy_is_loaded():
+    """Importing every module by its namespaced name loads no bare ``rules``/``obligations``/
+    ``encoders`` module (a second copy whose interned terms would differ); run late in the
+    suite, this also sees what every earlier test imported."""
+    import importlib
+    import sys
+
+    for mod in MODULES:
+        importlib.import_module(mod)
+    bare = sorted(m for m in sys.modules if m.split(".")[0] in PACKAGES)
+    assert bare == []

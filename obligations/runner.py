@@ -126,6 +126,10 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         if o["kind"] == "relational":
             parts = [x for x in relational if x.name == o["name"]]
             v = bounded.combine(o["name"], o["file"], o["formula"], b, parts)
+            if v.verdict == HOLDS and v.tried == 0:
+                # vacuous: "holds" must not read as if anything had been tried
+                v.warning = (f"no case at all: a quantified sort has no term up to size "
+                             f"{b.size} with {b.names} free name(s)")
         elif o["kind"] == "normalize":
             cutoffs = {}
             for name in {x.name for x in relational}:

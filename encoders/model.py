@@ -14,6 +14,7 @@ import re
 import z3
 
 from rules.errors import CalcError, UsageError
+from rules.files import read_text
 from rules.spec import Bounds
 
 from .smtlib import obligation_query, read_header
@@ -41,11 +42,7 @@ def parse_sexprs(text: str, where: str) -> list:
 
 def read_model(path: str) -> tuple[str, dict[str, int | bool]]:
     """The solver's answer (``sat``, ``unsat``, ``unknown``) and its model's values."""
-    try:
-        with open(path, encoding="utf-8") as f:
-            text = f.read()
-    except OSError as e:
-        raise UsageError(f"cannot read {path}: {e.strerror}") from None
+    text = read_text(path, what="solver output")
     items = parse_sexprs(text, path)
     answer = next((x for x in items if isinstance(x, str)), None)
     if answer not in ("sat", "unsat", "unknown"):

@@ -465,7 +465,7 @@ def merge(reports: tuple[str, ...], output: str) -> None:
     from .report import dumps, output_target, write_atomically
 
     output_target(output, reports)
-    merged, inputs = merge_reports(list(reports))
+    merged, inputs = merge_reports(list(reports), output)
     write_atomically(output, dumps(merged), [*reports, *inputs])
     verdicts = [c["verdict"] for c in merged["claims"] if "part_of" not in c]
     from .verdict import exit_code

@@ -5,41 +5,58 @@ from __future__ import annotations
 import json
 
 from rules.errors import UsageError
+from rules.files import read_text
 
-from .report import evidence_lines, write_atomically
+from .report import evidence_lines, output_target, write_atomically
 from .verdict import Verdict
 
 
 def load_report(path: str) -> dict:
+    """A saved JSON report: a regular file of bounded size (rules.files), valid JSON of
+    reasonable depth and numbers, with a list of claims."""
+    text = read_text(path, what="report")
     try:
-        with open(path, encoding="utf-8") as f:
-            data = json.load(f)
+        data = json.loads(text)
     except json.JSONDecodeError as e:
         raise UsageError(f"{path} is not a JSON report ({e.msg} at line {e.lineno})") from None
-    except OSError as e:
-        raise UsageError(f"cannot read {path}: {e.strerror}") from None
+    except RecursionError:
+        raise UsageError(f"{path} is not a calcscout report (its JSON is nested too deep)"
+                         ) from None
+    except ValueError as e:  # an integer of more digits than Python converts
+        raise UsageError(f"{path} is not a calcscout report ({e})") from None
     if not isinstance(data, dict) or not isinstance(data.get("claims"), list):
         raise UsageError(f"{path} is not a calcscout report")
     return data
 
 
 def explain_claim(path: str, claim: str, dot_path: str | None = None) -> str:
+    if dot_path is not None:
+        output_target(dot_path, [path], "graph")
     data = load_report(path)
-    entries = {c["name"]: c for c in data["claims"]}
+    try:
+        entries = {c["name"]: c for c in data["claims"]}
+    except (TypeError, KeyError):
+        raise UsageError(f"{path} is not a calcscout report (a claim without a name)") from None
     if claim not in entries:
         raise UsageError(f"no claim {claim} in {path}",
-                         hint="claims: " + ", ".join(entries))
-    v = Verdict.from_json(entries[claim])
+                         hint="claims: " + ", ".join(map(str, entries)))
+    try:
+        v = Verdict.from_json(entries[claim])
+    except (TypeError, KeyError, ValueError, AttributeError) as e:
+        raise UsageError(f"{path}: the entry of claim {claim} is not well formed "
+                         f"({type(e).__name__}: {e})") from None
     lines = evidence_lines(v)
     if v.verdict == "holds":
         lines.insert(1, f"  {v.tried} case(s) tried, none failed"
                      + (f"; proved for all terms ({v.reason})" if v.scope == "all" else ""))
     if dot_path is not None:
-        lines.append(f"  graph written to {write_counterexample_graph(data['file'], v, dot_path)}")
+        graph = write_counterexample_graph(data.get("file"), v, dot_path, path)
+        lines.append(f"  graph written to {graph}")
     return "\n".join(lines)
 
 
-def write_counterexample_graph(spec_file: str, v: Verdict, dot_path: str) -> str:
+def write_counterexample_graph(spec_file, v: Verdict, dot_path: str,
+                               report_path: str | None = None) -> str:
     """Rebuild the reduction graph the evidence speaks of and write it in DOT."""
     from rules.notation import parse_term
     from rules.parse import load_file
@@ -52,7 +69,11 @@ def write_counterexample_graph(spec_file: str, v: Verdict, dot_path: str) -> str
     ce = v.counterexample
     if ce is None:
         raise UsageError(f"claim {v.name} has no counterexample to draw")
+    if not isinstance(spec_file, str) or not spec_file:
+        raise UsageError(f"{report_path or 'the report'} names no rule file to draw from")
     spec = load_file(spec_file)
+    inputs = [*([report_path] if report_path else []), *spec.files]
+    output_target(dot_path, inputs, "graph")
     base = v.part_of or v.name
     claim = next((c for c in spec.claims if c.name == base), None)
     if claim is None:
@@ -85,7 +106,7 @@ def write_counterexample_graph(spec_file: str, v: Verdict, dot_path: str) -> str
                 highlight.add(parse_term(calc, val, "<report>"))
             except Exception:  # a term of another calculus: not in this graph
                 pass
-    write_atomically(dot_path, graph_to_dot(calc, g, highlight))
+    write_atomically(dot_path, graph_to_dot(calc, g, highlight), inputs)
     return dot_path
 
 

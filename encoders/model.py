@@ -49,16 +49,14 @@ def read_model(path: str) -> tuple[str, dict[str, int | bool]]:
         raise UsageError(f"{path} does not start with a solver's answer (sat, unsat or unknown)")
     values: dict[str, int | bool] = {}
 
-    def walk(x) -> None:
+    todo = list(reversed(items))  # a loop, not recursion: the output may be nested deep
+    while todo:
+        x = todo.pop()
         if isinstance(x, list):
             if len(x) == 5 and x[0] == "define-fun" and x[2] == []:
                 values[x[1].strip("|")] = _value(x[4], x[3], path)
-                return
-            for y in x:
-                walk(y)
-
-    for x in items:
-        walk(x)
+                continue
+            todo.extend(reversed(x))
     return answer, values
 
 
@@ -66,6 +64,10 @@ def _value(v, sort, path: str) -> int | bool:
     if sort == "Bool" and v in ("true", "false"):
         return v == "true"
     if sort == "Int":
+        digits = v if isinstance(v, str) else (v[1] if isinstance(v, list) and len(v) == 2
+                                               and v[0] == "-" and isinstance(v[1], str) else "")
+        if len(digits) > 1000:  # no model of a bounded encoding needs such a number
+            raise UsageError(f"{path}: a model value of {len(digits)} digits")
         if isinstance(v, str) and re.fullmatch(r"\d+", v):
             return int(v)
         if isinstance(v, list) and len(v) == 2 and v[0] == "-" and re.fullmatch(r"\d+", v[1]):

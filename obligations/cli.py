@@ -249,6 +249,7 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
 
     spec = load(file)
     _check_outputs(spec.files, json_path, junit_path)
+    sources = _sources(spec) if shard else None  # the contents this run reads, for merge
     chosen = list(spec.claims)
     if claims:
         by_name = {c.name: c for c in spec.claims}
@@ -264,7 +265,7 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         verdicts, partials = run_claims(spec, chosen, opts)
     finally:
         progress.clear()
-    extra = _shard_fields(spec, shard, engine, collect_all, partials) if shard else None
+    extra = _shard_fields(sources, shard, engine, collect_all, partials) if shard else None
     report = json_report(spec.file, verdicts, extra)
     if json_path is not None:
         write_atomically(json_path, dumps(report), spec.files)
@@ -292,12 +293,16 @@ def _check_outputs(inputs, *paths: str | None) -> None:
         seen[real] = p
 
 
-def _shard_fields(spec: Spec, shard, engine: str, collect_all: bool, partials) -> dict:
-    """What a shard report records so that ``merge`` can tell shards of one run
-    (the same rule file contents, claims, bounds, engine, shard count) from others."""
+def _sources(spec: Spec) -> str:
     from rules.files import sources_digest
 
-    return {"shard": list(shard), "sources": sources_digest(spec.files), "engine": engine,
+    return sources_digest(spec.files)
+
+
+def _shard_fields(sources, shard, engine: str, collect_all: bool, partials) -> dict:
+    """What a shard report records so that ``merge`` can tell shards of one run
+    (the same rule file contents, claims, bounds, engine, shard count) from others."""
+    return {"shard": list(shard), "sources": sources, "engine": engine,
             "all": collect_all, "records": partials}
 
 

@@ -22,8 +22,9 @@ def load_report(path: str) -> dict:
     except RecursionError:
         raise UsageError(f"{path} is not a calcscout report (its JSON is nested too deep)"
                          ) from None
-    except ValueError as e:  # an integer of more digits than Python converts
-        raise UsageError(f"{path} is not a calcscout report ({e})") from None
+    except ValueError:  # an integer of more digits than Python converts
+        raise UsageError(f"{path} is not a calcscout report (it has a number too long to "
+                         "read)") from None
     if not isinstance(data, dict) or not isinstance(data.get("claims"), list):
         raise UsageError(f"{path} is not a calcscout report")
     return data

@@ -197,7 +197,7 @@ def _rejudge(spec: Spec, ob: Obligation, bounds: Bounds, ce: Counterexample, exa
     except _MALFORMED as e:
         ok, why = False, f"it is not well formed ({type(e).__name__}: {e})"
     else:
-        why = "it does not fail as reported when judged again"
+        why = "judged again from its terms, the rule file does not give this failure and evidence"
     if not ok:
         raise UsageError(f"{where}: the counterexample in the report is not one ({why})",
                          hint="the report was edited, or is not of this rule file; "

@@ -381,6 +381,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     from .report import dumps, write_atomically
 
     spec = load(file)
+    _check_outputs(spec.files, json_out)
     cname, _, group = calc_name.partition(".")
     calc = calculus(spec, cname)
     if group and group not in calc.groups:
@@ -389,7 +390,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     b = spec.effective_bounds(Bounds(size=size, steps=steps, nodes=nodes))
     report = pairs_report(calc, b, group or None)
     if json_out is not None:
-        write_atomically(json_out, dumps(report))
+        write_atomically(json_out, dumps(report), spec.files)
         return
     ps = report["pairs"]
     depth = report.get("context_depth")

@@ -231,3 +231,45 @@ def test_export_writes_smtlib_files(capsys, tmp_path) -> None:
     assert paths and all(p.suffix == ".smt2" and p.exists() for p in paths)
     text = paths[0].read_text()
     assert "(set-logic" in text and "(check-sat)" in text and "; unsat:" in text
+
+
+def test_a_claim_named_twice_is_checked_once(capsys) -> None:
+    """Family: repeated names on the command line; also checked: the claims keep the
+    order in which they were first named."""
+    code, out, _ = run(capsys, "check", BASICS, "identity", "flip_same", "identity",
+                       "--json", "-")
+    names = [c["name"] for c in json.loads(out)["claims"]]
+    assert code == 1 and names == ["identity", "flip_same"]
+
+
+def test_holds_on_an_empty_sort_says_so(capsys) -> None:
+    """Family: a claim that holds with no case tried (a quantified sort with no term
+    within the bounds, with or without a premise); the verdict line and JSON warn, and
+    a claim with cases has no warning."""
+    empty = str(DATA / "hostile" / "empty-sort.calc")
+    code, out, _ = run(capsys, "check", empty)
+    assert code == 0
+    lines = [line for line in out.splitlines() if line.startswith("  holds")]
+    assert len(lines) == 2 and all("0 case(s)" in x and "warning: no case at all" in x
+                                   for x in lines)
+    code, out, _ = run(capsys, "check", empty, "--json", "-")
+    for entry in json.loads(out)["claims"]:
+        assert entry["tried"] == 0 and "no term up to size 4" in entry["warning"]
+    code, out, _ = run(capsys, "check", empty, "--names", "1", "--json", "-")
+    assert all("warning" not in c for c in json.loads(out)["claims"])
+
+
+@pytest.mark.parametrize(("value", "traceback"), [("", False), ("0", False), ("1", True),
+                                                   ("yes", True)])
+def test_debug_traceback_only_when_asked(capsys, monkeypatch, value, traceback) -> None:
+    """Family: the values of CALCSCOUT_DEBUG (unset or empty and 0 keep tracebacks off)."""
+    import obligations.cli as cli_module
+
+    def broken(path):
+        raise RuntimeError("a planted bug")
+
+    monkeypatch.setattr(cli_module, "load", broken)
+    monkeypatch.setenv("CALCSCOUT_DEBUG", value)
+    code, _, err = run(capsys, "check", BASICS)
+    assert code == 70 and "a planted bug" in err
+    assert ("Traceback" in err) == traceback

@@ -456,7 +456,9 @@ def _check_export_folder(out_dir: str, spec: Spec, claim) -> None:
         return
     p = plan(spec, claim)
     for ob in ([p.head] if p.head else []) + list(p.parts):
-        output_target(os.path.join(out_dir, f"{_safe(ob.name)}.smt2"), spec.files, "SMT-LIB file")
+        for suffix in (".smt2", ".smt2.tmp"):  # the file and its temporary, renamed over it
+            output_target(os.path.join(out_dir, _safe(ob.name) + suffix), spec.files,
+                          "SMT-LIB file")
 
 
 # ---------------------------------------------------------------- merge and explain

@@ -178,6 +178,14 @@ def test_export_does_not_write_over_its_rule_file(capsys, tmp_path) -> None:
     code, _, err = run(capsys, "export", str(spec), "identity", "-o", str(folder))
     assert code == 2 and "one of the files this run reads" in err
     assert spec.read_bytes() == BASICS.read_bytes()
+    # a FIFO where export would put a file, or its temporary: refused, not opened
+    for name in ("identity.smt2", "identity.smt2.tmp"):
+        other = tmp_path / f"with-{name}"
+        other.mkdir()
+        os.mkfifo(other / name)
+        r = run_process("export", str(BASICS), "identity", "-o", str(other), timeout=120)
+        assert r.returncode == 2 and "FIFO" in r.stderr, r.stderr
+        assert stat.S_ISFIFO(os.lstat(other / name).st_mode)
 
 
 # ---------------------------------------------------------------- item 3: missing folders

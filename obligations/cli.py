@@ -265,7 +265,8 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         verdicts, partials = run_claims(spec, chosen, opts)
     finally:
         progress.clear()
-    extra = _shard_fields(sources, shard, engine, collect_all, partials) if shard else None
+    extra = (_shard_fields(sources, shard, engine, timeout, collect_all, partials) if shard
+             else None)
     report = json_report(spec.file, verdicts, extra)
     if json_path is not None:
         write_atomically(json_path, dumps(report), spec.files)
@@ -299,10 +300,10 @@ def _sources(spec: Spec) -> str:
     return sources_digest(spec.files)
 
 
-def _shard_fields(sources, shard, engine: str, collect_all: bool, partials) -> dict:
+def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, partials) -> dict:
     """What a shard report records so that ``merge`` can tell shards of one run
     (the same rule file contents, claims, bounds, engine, shard count) from others."""
-    return {"shard": list(shard), "sources": sources, "engine": engine,
+    return {"shard": list(shard), "sources": sources, "engine": engine, "timeout": timeout,
             "all": collect_all, "records": partials}
 
 

@@ -2,7 +2,7 @@
 
 A merged report speaks for one whole run, so merge refuses shards that are
 not of one run: each shard report records a hash of the rule file and its
-includes, the engine, ``--all``, the shard count, and per claim its formula
+includes, the engine and its timeout, ``--all``, the shard count, and per claim its formula
 and bounds; all must agree, every shard must be there once, and the rule file
 (named in the reports) must still have the recorded hash.  Reports are files
 a user can edit, so every counterexample in them is judged again against the
@@ -42,8 +42,9 @@ def merge_reports(paths: list[str], output: str | None = None
         _check_shape(p, r)
     first_path, first = reports[0]
     for key, what in (("file", "rule files"), ("sources", "rule file contents (their hashes)"),
-                      ("engine", "engines"), ("all", "--all settings")):
-        values = {str(r[key]) for _, r in reports}
+                      ("engine", "engines"), ("timeout", "solver timeouts"),
+                      ("all", "--all settings")):
+        values = {str(r.get(key)) for _, r in reports}
         if len(values) != 1:
             raise UsageError(f"the reports are of different {what}: "
                              + ", ".join(sorted(values)),
@@ -117,6 +118,8 @@ def _check_shape(path: str, r: dict[str, Any]) -> None:
         raise bad("it has no hash of the rule file's contents (a report of an older version?)")
     if r.get("engine") not in ("enum", "smt", "auto") or not isinstance(r.get("all"), bool):
         raise bad("its engine or --all field is missing or wrong")
+    if r.get("timeout") is not None and type(r["timeout"]) not in (int, float):
+        raise bad(f"its timeout field is {r['timeout']!r}, not a number of seconds")
     records = r.get("records")
     if not isinstance(records, dict):
         raise bad("its records are missing")

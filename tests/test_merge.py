@@ -66,7 +66,7 @@ def test_shards_of_different_runs_are_refused(capsys, shards, tmp_path) -> None:
     contents, claims, bounds, engine, --all, shard count, a repeated or missing shard)."""
     spec, (s1, s2) = shards
     other = []
-    for args in (["--size", "4"], ["--all"], ["--engine", "auto"]):
+    for args in (["--size", "4"], ["--all"], ["--engine", "auto"], ["--timeout", "7"]):
         p = tmp_path / f"other{len(other)}.json"
         run(capsys, "check", "basics.calc", *CLAIMS, "--shard", "2/2", "--json", str(p), *args)
         other.append(p)
@@ -76,7 +76,8 @@ def test_shards_of_different_runs_are_refused(capsys, shards, tmp_path) -> None:
     p = tmp_path / "three.json"
     run(capsys, "check", "basics.calc", *CLAIMS, "--shard", "2/3", "--json", str(p))
     other.append(p)
-    expected = ["different bounds", "different --all", "different engines", "other claims",
+    expected = ["different bounds", "different --all", "different engines",
+                "different solver timeouts", "other claims",
                 "different numbers of shards"]
     for p, words in zip(other, expected, strict=True):
         code, err = _merge(capsys, s1, p)

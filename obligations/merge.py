@@ -129,6 +129,8 @@ def _check_shape(path: str, r: dict[str, Any]) -> None:
         try:
             Bounds(**rec["bounds"])
             for o in rec["obligations"]:
+                if not isinstance(o.get("name"), str) or not isinstance(o.get("head"), bool):
+                    raise ValueError("an obligation without a name or a head flag")
                 if o["kind"] == "relational":
                     for x in o["parts"]:
                         bounded.Partial.from_json(o["name"], x)

@@ -213,3 +213,39 @@ def test_counterexamples_survive_the_round_trip(capsys, shards) -> None:
         except AssertionError:
             pass
     assert entry["verdict"] == "refuted" and entry["counterexample"] in found
+
+
+def test_no_edit_of_a_shard_report_is_an_internal_error(capsys, shards) -> None:
+    """Family: every field of a shard report (top level and one claim's record, down to
+    its counterexample), made null or a string; merge either merges or
+    refuses with exit 2, never exit 70. (A field that merge cannot verify without running
+    the shard again, such as a count, may still merge: the counterexamples are judged.)"""
+    _, (s1, s2) = shards
+    has, other = _shard_with_failure(shards, "flip_sim")
+    base = json.loads(has.read_text())
+    base["records"] = {"flip_sim": base["records"]["flip_sim"]}
+    trimmed = has.with_name("trimmed.json")
+    trimmed.write_text(json.dumps(base))
+    rest = json.loads(other.read_text())
+    rest["records"] = {"flip_sim": rest["records"]["flip_sim"]}
+    other_trimmed = other.with_name("other-trimmed.json")
+    other_trimmed.write_text(json.dumps(rest))
+
+    def paths(x, pre=()):
+        yield pre
+        items = x.items() if isinstance(x, dict) else enumerate(x) if isinstance(x, list) else ()
+        for k, v in items:
+            yield from paths(v, (*pre, k))
+
+    tried = 0
+    for path in list(paths(base))[1:]:
+        for value in (None, "x"):
+            def change(d, path=path, value=value):
+                for k in path[:-1]:
+                    d = d[k]
+                d[path[-1]] = value
+            code, err = _merge(capsys, _edit(trimmed, change), other_trimmed)
+            tried += 1
+            assert code in (0, 1, 2, 3), (path, value, err)
+            assert "internal error" not in err, (path, value, err)
+    assert tried > 100

@@ -41,11 +41,11 @@ def explain_claim(path: str, claim: str, dot_path: str | None = None) -> str:
     if claim not in entries:
         raise UsageError(f"no claim {claim} in {path}",
                          hint="claims: " + ", ".join(map(str, entries)))
-    try:
-        v = Verdict.from_json(entries[claim])
-    except (TypeError, KeyError, ValueError, AttributeError) as e:
-        raise UsageError(f"{path}: the entry of claim {claim} is not well formed "
-                         f"({type(e).__name__}: {e})") from None
+    why = entry_problem(entries[claim])
+    if why is not None:
+        raise UsageError(f"{path}: the entry of claim {claim} is not well formed ({why})",
+                         hint="was the report edited? run check again to get a new one")
+    v = Verdict.from_json(entries[claim])
     lines = evidence_lines(v)
     if v.verdict == "holds":
         lines.insert(1, f"  {v.tried} case(s) tried, none failed"
@@ -54,6 +54,59 @@ def explain_claim(path: str, claim: str, dot_path: str | None = None) -> str:
         graph = write_counterexample_graph(data.get("file"), v, dot_path, path)
         lines.append(f"  graph written to {graph}")
     return "\n".join(lines)
+
+
+_VERDICTS = ("holds", "refuted", "inconclusive", "error")
+
+
+def entry_problem(entry) -> str | None:
+    """Why a claim's entry of a report cannot be shown (it was edited by hand, or is of
+    another program), or None: the fields and types that printing and drawing rely on."""
+    def opt_str(x) -> bool:
+        return x is None or isinstance(x, str)
+
+    def count(x) -> bool:
+        return type(x) is int and x >= 0
+
+    if not isinstance(entry, dict):
+        return "not an object"
+    if entry.get("verdict") not in _VERDICTS:
+        return f"verdict {entry.get('verdict')!r}"
+    for key in ("file", "formula", "scope", "engine", "reason", "warning", "cut_by", "part_of"):
+        if not opt_str(entry.get(key)):
+            return f"{key} is not text"
+    b = entry.get("bounds", {})
+    if not isinstance(b, dict) or not all(
+            b.get(k) is None or (count(b[k]) and (k != "nodes" or b[k] >= 1))
+            for k in ("size", "steps", "names", "nodes")):
+        return "bounds are not counts"
+    if not all(count(entry.get(k, 0)) for k in ("tried", "undecided")):
+        return "tried or undecided is not a count"
+    if type(entry.get("seconds", 0.0)) not in (int, float):
+        return "seconds is not a number"
+    notes = entry.get("notes", [])
+    if not isinstance(notes, list) or not all(isinstance(n, str) for n in notes):
+        return "notes are not a list of text"
+    more = entry.get("counterexamples", [])
+    if not isinstance(more, list):
+        return "counterexamples is not a list"
+    for ce in [entry.get("counterexample"), entry.get("undecided_example"), *more]:
+        if ce is None:
+            continue
+        if not isinstance(ce, dict) or not count(ce.get("size")) or not opt_str(
+                ce.get("evidence")):
+            return "a counterexample without a size or evidence"
+        terms = ce.get("terms")
+        if not isinstance(terms, dict) or not terms or not all(
+                isinstance(t, str) or (isinstance(t, list) and all(isinstance(x, str) for x in t))
+                for t in terms.values()):
+            return "a counterexample's terms are not terms"
+        details = ce.get("details", {})
+        if not isinstance(details, dict) or not isinstance(details.get("graph", {}), dict):
+            return "a counterexample's details are not well formed"
+        if not opt_str(details.get("graph", {}).get("root")):
+            return "a counterexample's graph root is not text"
+    return None
 
 
 def write_counterexample_graph(spec_file, v: Verdict, dot_path: str,
@@ -87,7 +140,7 @@ def write_counterexample_graph(spec_file, v: Verdict, dot_path: str,
     b = v.bounds
     if isinstance(f, Confluent | Terminating):
         calc = spec.calculi[f.calculus]
-        root, group = ce.terms["term"], f.group
+        root, group = ce.terms.get("term"), f.group
     else:
         atom = f.conclusion if isinstance(f, Implies) else f
         assert isinstance(atom, Atom)
@@ -98,6 +151,9 @@ def write_counterexample_graph(spec_file, v: Verdict, dot_path: str,
             key = next(iter(ce.terms))
         calc = spec.calculi[atom.relation.calculus or atom.left.calculus]
         root, group = ce.terms[key], atom.relation.group
+    if not isinstance(root, str):
+        raise UsageError(f"claim {v.name}: the counterexample in the report has no term to draw "
+                         "the graph from", hint="was the report edited? run check again")
     term = parse_term(calc, root, "<report>")
     g = reduction_graph(calc, term, b.steps or 10, b.nodes or 20000, group)
     highlight = set()

@@ -305,3 +305,35 @@ def test_standard_output_on_a_full_device_is_exit_2() -> None:
                                text=True, timeout=120)
         assert r.returncode == 2, r.stderr
         assert "cannot write to standard output" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_no_edit_of_a_saved_report_makes_explain_fail_as_a_bug(capsys, tmp_path) -> None:
+    """Family: every field of a claim's entry (down to its counterexample's terms and
+    graph), made null or a list of numbers, given to explain with and without --dot:
+    it explains or refuses with exit 2, never exit 70. Merge's sweep is in test_merge.py."""
+    spec = rule_file(tmp_path)
+    report = tmp_path / "r.json"
+    run(capsys, "check", str(spec), "flip_sim", "--json", str(report))
+    base = json.loads(report.read_text())
+
+    def paths(x, pre=()):
+        yield pre
+        items = x.items() if isinstance(x, dict) else enumerate(x) if isinstance(x, list) else ()
+        for k, v in items:
+            yield from paths(v, (*pre, k))
+
+    edited = tmp_path / "edited.json"
+    tried = 0
+    for path in list(paths(base["claims"][0]))[1:]:
+        for value in (None, [1, 2]):
+            data = json.loads(report.read_text())
+            d = data["claims"][0]
+            for k in path[:-1]:
+                d = d[k]
+            d[path[-1]] = value
+            edited.write_text(json.dumps(data))
+            for extra in ([], ["--dot", str(tmp_path / "g.dot")]):
+                code, _, err = run(capsys, "explain", str(edited), "flip_sim", *extra)
+                tried += 1
+                assert code in (0, 2) and "internal error" not in err, (path, value, err)
+    assert tried > 50

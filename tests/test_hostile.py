@@ -337,3 +337,18 @@ def test_no_edit_of_a_saved_report_makes_explain_fail_as_a_bug(capsys, tmp_path)
                 tried += 1
                 assert code in (0, 2) and "internal error" not in err, (path, value, err)
     assert tried > 50
+
+
+def test_one_file_for_two_outputs_is_refused(capsys, tmp_path) -> None:
+    """Family: two options of one run naming the same file (--json and --junit, reduce's
+    --dot and --json), under any spelling; the file is left as it was."""
+    spec = rule_file(tmp_path)
+    target = tmp_path / "both"
+    target.write_text("kept\n")
+    (tmp_path / "alias").symlink_to("both")
+    for args in (["check", str(spec), "identity", "--json", str(target), "--junit",
+                  str(tmp_path / "alias")],
+                 ["reduce", str(spec), "lam", "x", "--dot", str(target), "--json", str(target)]):
+        code, _, err = run(capsys, *args)
+        assert code == 2 and "given for two outputs" in err, err
+    assert target.read_text() == "kept\n"

@@ -85,7 +85,8 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
         elif bounded.is_relational(ob):
             parts = _run_relational(spec, ob, b, opts)
-            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts]})
+            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts],
+                        "empty": _empty_sorts(spec, ob, b)})
         else:
             if opts.engine == "smt":
                 raise EncodingError(f"claim {claim.name}: {ob.text} is a rewriting question the "
@@ -97,6 +98,16 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
     return {"claim": claim.name, "file": claim.file, "formula": claim.text,
             "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
             "shard": list(opts.shard) if opts.shard else None}
+
+
+def _empty_sorts(spec: Spec, ob: Obligation, b: Bounds) -> list[str]:
+    """The quantified sorts with no term at all within the bounds (``M in lam.term``), for
+    the warning on a claim that holds without a single case."""
+    from rules.enumerate import count_terms
+
+    assert b.size is not None and b.names is not None
+    return [f"{m.name} in {m.calculus}.{m.sort}" for m in ob.quantified
+            if count_terms(spec.calculi[m.calculus], m.sort, b.size, b.names) == 0]
 
 
 def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
@@ -128,8 +139,11 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
             v = bounded.combine(o["name"], o["file"], o["formula"], b, parts)
             if v.verdict == HOLDS and v.tried == 0:
                 # vacuous: "holds" must not read as if anything had been tried
-                v.warning = (f"no case at all: a quantified sort has no term up to size "
-                             f"{b.size} with {b.names} free name(s)")
+                empty = o.get("empty") or []
+                why = (f"{', '.join(empty)} {'has' if len(empty) == 1 else 'have'} no term"
+                       if empty else "the quantified metavariables have no values together")
+                v.warning = (f"no case at all: {why} up to size {b.size} with {b.names} "
+                             "free name(s)")
         elif o["kind"] == "normalize":
             cutoffs = {}
             for name in {x.name for x in relational}:

@@ -244,8 +244,8 @@ def test_a_claim_named_twice_is_checked_once(capsys) -> None:
 
 def test_holds_on_an_empty_sort_says_so(capsys) -> None:
     """Family: a claim that holds with no case tried (a quantified sort with no term
-    within the bounds, with or without a premise); the verdict line and JSON warn, and
-    a claim with cases has no warning."""
+    within the bounds, with or without a premise; sorts that are not empty but do not
+    fit together); the verdict line and JSON warn, and a claim with cases has none."""
     empty = str(DATA / "hostile" / "empty-sort.calc")
     code, out, _ = run(capsys, "check", empty)
     assert code == 0
@@ -254,9 +254,17 @@ def test_holds_on_an_empty_sort_says_so(capsys) -> None:
                                    for x in lines)
     code, out, _ = run(capsys, "check", empty, "--json", "-")
     for entry in json.loads(out)["claims"]:
-        assert entry["tried"] == 0 and "no term up to size 4" in entry["warning"]
+        assert entry["tried"] == 0
+        assert "M in open.num has no term up to size 4" in entry["warning"]
     code, out, _ = run(capsys, "check", empty, "--names", "1", "--json", "-")
     assert all("warning" not in c for c in json.loads(out)["claims"])
+    # no sort is empty, but two metavariables do not fit in size 1 together
+    together = str(DATA / "hostile" / "empty-together.calc")
+    code, out, _ = run(capsys, "check", together, "--json", "-")
+    entry = json.loads(out)["claims"][0]
+    assert code == 0 and "have no values together up to size 1" in entry["warning"]
+    code, out, _ = run(capsys, "check", together, "--size", "2", "--json", "-")
+    assert code == 1 and "warning" not in json.loads(out)["claims"][0]
 
 
 @pytest.mark.parametrize(("value", "traceback"), [("", False), ("0", False), ("1", True),

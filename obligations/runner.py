@@ -82,7 +82,8 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
 
             v = run_smt(spec, ob, b, opts.timeout)
             v.seconds = time.perf_counter() - start
-            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json(),
+                        "empty": _empty_sorts(spec, ob, b)})
         elif bounded.is_relational(ob):
             parts = _run_relational(spec, ob, b, opts)
             obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts],
@@ -137,13 +138,6 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         if o["kind"] == "relational":
             parts = [x for x in relational if x.name == o["name"]]
             v = bounded.combine(o["name"], o["file"], o["formula"], b, parts)
-            if v.verdict == HOLDS and v.tried == 0:
-                # vacuous: "holds" must not read as if anything had been tried
-                empty = o.get("empty") or []
-                why = (f"{', '.join(empty)} {'has' if len(empty) == 1 else 'have'} no term"
-                       if empty else "the quantified metavariables have no values together")
-                v.warning = (f"no case at all: {why} up to size {b.size} with {b.names} "
-                             "free name(s)")
         elif o["kind"] == "normalize":
             cutoffs = {}
             for name in {x.name for x in relational}:
@@ -153,6 +147,12 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
                                           o["group"], b, relational, cutoffs)
         else:
             v = Verdict.from_json(o["verdict"])
+        if "empty" in o and v.verdict == HOLDS and v.scope != "all" and v.tried == 0:
+            # vacuous: "holds" must not read as if anything had been tried
+            empty = o["empty"]
+            why = (f"{', '.join(empty)} {'has' if len(empty) == 1 else 'have'} no term"
+                   if empty else "the quantified metavariables have no values together")
+            v.warning = f"no case at all: {why} up to size {b.size} with {b.names} free name(s)"
         if o["head"]:
             head_v = v
         else:

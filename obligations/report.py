@@ -190,6 +190,9 @@ def output_target(path: str, inputs: Iterable[str | os.PathLike] = (),
                                  f"writing the {what} there would destroy it",
                                  hint="give another output path")
         return real
+    if path.endswith(("/", os.sep)):  # a folder was meant, and it does not exist
+        raise UsageError(f"{path} names a folder, and there is none; the {what} needs a "
+                         "file name")
     folder = os.path.dirname(real) or "."
     if not os.path.isdir(folder):
         raise UsageError(f"cannot write {path}: the folder {os.path.dirname(path) or folder} "

@@ -200,6 +200,8 @@ def test_a_report_in_a_missing_folder_is_refused_and_no_folder_is_made(capsys, t
                            str(tmp_path / "no" / "such" / "r.json"))
         assert code == 2 and "does not exist" in err
     assert not (tmp_path / "no").exists()
+    code, _, err = run(capsys, "check", str(spec), "identity", "--json", str(tmp_path / "no") + "/")
+    assert code == 2 and "names a folder" in err and not (tmp_path / "no").exists()
     pytest.importorskip("z3")
     code, _, err = run(capsys, "export", str(spec), "identity", "-o", str(tmp_path / "a" / "b"))
     assert code == 2 and "does not exist" in err and not (tmp_path / "a").exists()

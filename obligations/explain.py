@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 from rules.errors import UsageError
-from rules.files import read_text
+from rules.files import MAX_REPORT_BYTES, read_text
 
 from .report import evidence_lines, output_target, write_atomically
 from .verdict import Verdict
@@ -14,7 +14,7 @@ from .verdict import Verdict
 def load_report(path: str) -> dict:
     """A saved JSON report: a regular file of bounded size (rules.files), valid JSON of
     reasonable depth and numbers, with a list of claims."""
-    text = read_text(path, what="report")
+    text = read_text(path, limit=MAX_REPORT_BYTES, what="report")
     try:
         data = json.loads(text)
     except json.JSONDecodeError as e:

@@ -18,7 +18,9 @@ from pathlib import Path
 
 from .errors import FileError
 
-MAX_INPUT_BYTES = 4 * 1024 * 1024  # rule files, reports and solver outputs are small
+MAX_INPUT_BYTES = 4 * 1024 * 1024  # rule files, .smt2 headers and solver outputs are small
+# a shard report keeps a line per undecided or normalised case: large runs make large ones
+MAX_REPORT_BYTES = 256 * 1024 * 1024
 
 
 def file_kind(mode: int) -> str:

@@ -20,6 +20,7 @@ from rules.files import sources_digest
 from rules.notation import parse_term
 from rules.parse import load_file
 from rules.spec import Atom, Bounds, Confluent, Implies, Spec, Terminating
+from rules.translate import Undefined
 
 from . import bounded, confluence
 from .claims import Obligation, plan
@@ -134,6 +135,9 @@ def _check_shape(path: str, r: dict[str, Any]) -> None:
                 if o["kind"] == "relational":
                     for x in o["parts"]:
                         bounded.Partial.from_json(o["name"], x)
+                        if not all(isinstance(x.get(k, {}), dict) for k in ("several",
+                                                                             "normalize")):
+                            raise ValueError("several or normalize is not an object")
                 elif o["kind"] == "fixed":
                     Verdict.from_json(o["verdict"])
                 elif o["kind"] != "normalize":
@@ -173,8 +177,11 @@ def _rejudge_report(spec: Spec, path: str, r: dict[str, Any]) -> None:
                 raise UsageError(f"{path}: claim {claim} has no part {o['name']} in the rule file")
             exact = o["kind"] == "relational"  # built by this engine: rebuilt the same
             if exact:
-                ces = [f.counterexample for x in o["parts"]
-                       for f in bounded.Partial.from_json(o["name"], x).failures]
+                partials = [bounded.Partial.from_json(o["name"], x) for x in o["parts"]]
+                ces = [f.counterexample for x in partials for f in x.failures]
+                for x in partials:
+                    for trn, ex in x.several.items():
+                        _rejudge_several(spec, trn, ex, bounds, f"{path}: claim {o['name']}")
             elif o["kind"] == "fixed":
                 v = Verdict.from_json(o["verdict"])
                 ces = v.more or ([v.counterexample] if v.counterexample else [])
@@ -205,6 +212,35 @@ def _rejudge(spec: Spec, ob: Obligation, bounds: Bounds, ce: Counterexample, exa
         why = "judged again from its terms, the rule file does not give this failure and evidence"
     if not ok:
         raise UsageError(f"{where}: the counterexample in the report is not one ({why})",
+                         hint="the report was edited, or is not of this rule file; "
+                         "run the shard again")
+
+
+def _rejudge_several(spec: Spec, trn: str, ex: dict[str, Any], bounds: Bounds,
+                     where: str) -> None:
+    """A normalised translation said to be undefined on a term (several normal forms, or
+    none because every path cycles), checked again by the engine's own re-check."""
+    why = "judged again, the group does not do what the report says"
+    try:
+        tr = spec.translations[trn]
+        calc = spec.calculi[tr.target]
+        built = parse_term(calc, ex["term"], "<report>")
+        nfs = tuple(parse_term(calc, t, "<report>") for t in ex["normal_forms"])
+        cycles = ex.get("cycles") is True
+        u = Undefined("no-normal-form" if cycles else "several-normal-forms", built, nfs,
+                      "cycle" if cycles else None)
+        ok = ex["size"] == built.size and (cycles or len(nfs) >= 2)
+        if ok:
+            bounded._recheck_normal_forms(calc, tr.normalize, u, bounds)
+    except bounded.InternalError:
+        ok = False
+    except CalcError as e:
+        ok, why = False, f"a term does not read back ({e.problems[0].message})"
+    except _MALFORMED as e:
+        ok, why = False, f"it is not well formed ({type(e).__name__}: {e})"
+    if not ok:
+        raise UsageError(f"{where}: the report says the translation {trn} is undefined on a "
+                         f"term, and it is not ({why})",
                          hint="the report was edited, or is not of this rule file; "
                          "run the shard again")
 

@@ -250,3 +250,34 @@ def test_no_edit_of_a_shard_report_is_an_internal_error(capsys, shards) -> None:
         assert code in (0, 1, 2, 3), (path, value, err)
         assert "internal error" not in err, (path, value, err)
     assert tried > 50
+
+
+def test_a_forged_undefined_normalisation_is_refused(capsys, tmp_path, monkeypatch) -> None:
+    """Family: the other evidence a shard carries besides counterexamples, a normalised
+    translation undefined on a term (its normal forms, the term, "every path cycles"):
+    each edit is refused; the honest shards merge."""
+    monkeypatch.chdir(tmp_path)
+    shutil.copyfile(BASICS, tmp_path / "basics.calc")
+    parts = []
+    for i in (1, 2):
+        p = tmp_path / f"n{i}.json"
+        run(capsys, "check", "basics.calc", "forked", "--shard", f"{i}/2", "--json", str(p))
+        parts.append(p)
+    assert _merge(capsys, *parts)[0] == 3  # forked is inconclusive, its normalize part refuted
+    Path("merged.json").unlink()
+
+    def example(d):
+        for part in d["records"]["forked"]["obligations"][0]["parts"]:
+            if part["several"]:
+                return part["several"]["into_fork"]
+        raise AssertionError("no shard met several normal forms")
+
+    has = next(p for p in parts if json.loads(p.read_text())["records"]["forked"]
+               ["obligations"][0]["parts"][0]["several"])
+    other = next(p for p in parts if p != has)
+    for key, value in (("normal_forms", ["a", "a"]), ("term", "c"), ("cycles", True),
+                       ("size", 7), ("normal_forms", ["a", "b("])):
+        forged = _edit(has, lambda d, key=key, value=value: example(d).update({key: value}))
+        code, err = _merge(capsys, forged, other)
+        assert code == 2 and "undefined on a term, and it is not" in err, (key, err)
+        assert not Path("merged.json").exists()

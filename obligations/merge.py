@@ -5,10 +5,10 @@ not of one run: each shard report records a hash of the rule file and its
 includes, the engine and its timeout, ``--all``, the shard count, and per claim its formula
 and bounds; all must agree, every shard must be there once, and the rule file
 (named in the reports) must still have the recorded hash.  Reports are files
-a user can edit, so every counterexample in them is judged again against the
-rule file, by the enumeration engine's own re-check, before anything is
-merged: a forged or edited counterexample is refused, never printed as a
-refutation.
+a user can edit, so every counterexample in them (and every term on which a
+normalised translation is said to be undefined) is judged again against the
+rule file, by the engines' own re-checks, before anything is merged: a forged
+or edited counterexample is refused, never printed as a refutation.
 """
 
 from __future__ import annotations

@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.spec import Bounds
+from calcscout.rules.core.spec import Bounds
 
 HOLDS = "holds"
 REFUTED = "refuted"
@@ -68,6 +68,7 @@ class Verdict:
     proof: dict[str, Any] | None = None  # what the proof engine made of it (cases, open goals)
     lemmas: list[str] = field(default_factory=list)  # proved lemmas its proof used
     assumes: list[str] = field(default_factory=list)  # lemmas used that are only bounded
+    warning: str | None = None  # e.g. "holds" with no case at all: an empty sort
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -86,6 +87,8 @@ class Verdict:
         }
         if self.reason is not None:
             out["reason"] = self.reason
+        if self.warning is not None:
+            out["warning"] = self.warning
         if self.more:
             out["counterexamples"] = [c.to_json() for c in self.more]
         if self.undecided_example is not None:
@@ -123,6 +126,7 @@ class Verdict:
                                if data.get("undecided_example") else None),
             lemma=bool(data.get("lemma", False)), proof=data.get("proof"),
             lemmas=list(data.get("lemmas", [])), assumes=list(data.get("assumes", [])),
+            warning=data.get("warning"),
         )
 
 

@@ -48,6 +48,8 @@ from calcscout.rules.core.spec import (
     ESubst,
     Expr,
     Implies,
+    PAbs,
+    PCon,
     Relation,
     Spec,
 )
@@ -79,7 +81,8 @@ from calcscout.rules.rewriting.symbolic import (
 PROVED, OPEN = "proved", "open"
 NEEDS_LEMMA, STUCK, SPLIT_LIMIT, SEARCH_CUT = "needs-lemma", "stuck", "split-limit", "search-cut"
 REWRITE_ROUNDS = 40
-SPLIT_BUDGET = 60  # splits in one induction, in all
+SPLIT_BUDGET = 20  # splits in one induction, in all
+PROOF_SECONDS = 10.0  # then the cases not yet tried are left open
 SEARCH_NODES = 3000  # terms in one search of a proof case (also within `nodes`)
 
 
@@ -212,11 +215,13 @@ class Prover:
         self._used_lemmas: list[str] = []
         self._smaller: set[str] = set()
         self._proxies: dict[tuple[str, str], Node] = {}
+        self._deadline = float("inf")
 
     # ------------------------------------------------------------ entry
 
     def prove(self, ob: Obligation) -> ProofResult:
         start = time.perf_counter()
+        self._deadline = start + PROOF_SECONDS
         f = ob.formula
         if isinstance(f, Atom):
             result = self._structural(ob, f)
@@ -242,6 +247,12 @@ class Prover:
 
     def show(self, t: Term, calc: Calculus) -> str:
         return show(self.spec.calculi.get, t, calc)
+
+    def split_text(self, label: str, s, calc: Calculus) -> str:
+        if s.kind == "other":
+            others = ", ".join(self.show(n, calc) for n in s.new)
+            return f"{label} is a name" + (f" other than {others}" if others else "")
+        return f"{label} = {self.show(s.shape, calc)}"
 
     def _tracked(self, quantified: tuple[EMeta, ...]) -> tuple[dict[str, Term], list[Name]]:
         """Values for a claim's names metavariables: a new name each, shown as written."""
@@ -390,6 +401,10 @@ class Prover:
 
     # ------------------------------------------------------------ deciding one case
 
+    @property
+    def _rule_lhss(self) -> list:
+        return [r.lhs for c in self.spec.calculi.values() for r in c.rules]
+
     def decide(self, atom: Atom, case: _Case, rws: list[Rewrite]
                ) -> tuple[bool, list[ProofStep], tuple[Term, Term] | None, str | None, str | None]:
         """(proved, steps, goal terms, why, detail) for the atom in this case."""
@@ -511,6 +526,9 @@ class Prover:
 
     def run_case(self, atom: Atom, case: _Case, rws: list[Rewrite], depth: int,
                  counter: list[int]) -> list[ProofCase]:
+        if time.perf_counter() > self._deadline:
+            return [ProofCase(case.text, OPEN, [], None, SEARCH_CUT,
+                              f"not tried: the proof ran past {PROOF_SECONDS:g} s")]
         self._smaller = case.smaller
         proved, steps, goal, why, detail = self.decide(atom, case, rws)
         if proved:
@@ -528,8 +546,8 @@ class Prover:
                 env = {k: replace_meta(v, s.meta, s.shape, o.params) for k, v in case.env.items()}
                 smaller = set(case.smaller)
                 if target.con in case.smaller:
-                    smaller |= {m.con for m in s.new}
-                text = f"{case.text}, {o.label} = {self.show(s.shape, calc)}"
+                    smaller |= {m.con for m in s.new if isinstance(m, Node)}
+                text = f"{case.text}, {self.split_text(o.label, s, calc)}"
                 out.extend(self.run_case(atom, _Case(env, text, smaller), rws, depth + 1,
                                          counter))
             return out
@@ -555,10 +573,14 @@ class Prover:
                 if o.kind == "call" and o.blocker in present:
                     return _identity(present[o.blocker])
         if relational:
+            calc = self.calc(OPAQUES[next(iter(present))].calc) if present else None
             for t in goal:
-                for s in opaques_in(t):
-                    if s.con in present:
-                        return _identity(present[s.con])
+                for s in _rule_blocked(t, self._rule_lhss):
+                    o = OPAQUES[s.con]
+                    cand = s.con if o.kind == "meta" else (o.blocker or _first_meta(s))
+                    if cand in present:
+                        return _identity(present[cand])
+            del calc
         return None
 
     # ------------------------------------------------------------ candidates
@@ -673,8 +695,8 @@ class Prover:
         for s in split(calc, root, lambda sort: self.label(calc, sort)):
             case_env = {k: replace_meta(v, s.meta, s.shape, OPAQUES[root.con].params)
                         for k, v in env.items()}
-            case = _Case(case_env, f"{var.name} = {self.show(s.shape, calc)}",
-                         {m.con for m in s.new})
+            case = _Case(case_env, self.split_text(var.name, s, calc),
+                         {m.con for m in s.new if isinstance(m, Node)})
             if atom.relation is None:
                 case.hypothesis = (atom, var)
             cases.extend(self.run_case(atom, case, rws, 0, counter))
@@ -752,7 +774,7 @@ class Prover:
     def _inside_cases(self, calc: Calculus, rel: Relation, mvar: EMeta, nvar: EMeta,
                       env0: dict[str, Term], names: list[Name], conclusion: Atom,
                       lemmas: list[Rewrite], counter: list[int]) -> list[ProofCase]:
-        keep, why = steps_keep_sorts(calc, rel.group)
+        keep, why = steps_keep_sorts(calc, rel.group, mvar.sort)
         places = list(self._places(calc, mvar.sort))
         if not places:
             return []
@@ -886,6 +908,38 @@ def _relevant(rws: list[Rewrite]) -> Callable[[Node], bool]:
         else:
             return lambda t: True
     return lambda t: any(h(t) for h in heads)
+
+
+def _rule_blocked(t: Term, lhss: list) -> list[Node]:
+    """Opaque nodes standing where a rule's left side needs a constructor: splitting the
+    metavariable behind one may let the rule fire (``app(cps(M), k)`` is a redex only once
+    ``cps(M)`` shows its abstraction)."""
+    out: list[Node] = []
+
+    def go(s: Term) -> None:
+        if not isinstance(s, Node) or info(s) is not None:
+            return
+        for lhs in lhss:
+            if isinstance(lhs, PCon) and lhs.con == s.con and len(lhs.args) == len(s.args):
+                for pa, a in zip(lhs.args, s.args, strict=True):
+                    body = pa.body if isinstance(pa, PAbs) else pa
+                    if isinstance(body, PCon) and info(a) is not None and a not in out:
+                        out.append(a)  # type: ignore[arg-type]
+        for a in s.args:
+            go(a)
+
+    go(t)
+    return out
+
+
+def _first_meta(t: Node) -> str | None:
+    """The metavariable a call waits for when it was made on one."""
+    o = OPAQUES[t.con]
+    if o.kind == "call" and o.template:
+        a = info(o.template[0])
+        if a is not None and a.kind == "meta":
+            return o.template[0].con  # type: ignore[union-attr]
+    return None
 
 
 def _substituted(t: Term) -> bool:

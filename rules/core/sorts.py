@@ -134,11 +134,34 @@ class Grammar:
         calc, sort, params = OPAQUE_SORTS[term.con]
         if calc != self.calc.name or sort not in self.supers:
             return EMPTY
-        for arg, ns in zip(term.args, params, strict=True):
-            need = self.names_state.get(ns, EMPTY)
-            if not need <= self.state(arg, env):
-                return EMPTY
-        return self.sorts_including((sort,))
+        args = [(self.names_state.get(ns, EMPTY), self.state(arg, env))
+                for arg, ns in zip(term.args, params, strict=True)]
+        # a derivation of the instance in sort s uses only the sorts s depends on: where a
+        # name stood at one of those, the argument must stand too
+        return frozenset(s for s in self.sorts_including((sort,))
+                         if all(need & self.depends[s] <= got for need, got in args))
+
+    @cached_property
+    def depends(self) -> dict[str, frozenset[str]]:
+        """The sorts a derivation of a term of each sort may use (its own included)."""
+        direct: dict[str, set[str]] = {s: {s} for s in self.sort_names}
+        for s in self.sort_names:
+            for alt in self.calc.sorts[s].alts:
+                if isinstance(alt, AltSort) and alt.sort in direct:
+                    direct[s].add(alt.sort)
+                elif isinstance(alt, AltCon):
+                    direct[s].update(a.sort for a in alt.args if a.sort in direct)
+        out: dict[str, frozenset[str]] = {}
+        for s in self.sort_names:
+            seen = set(direct[s])
+            todo = list(seen)
+            while todo:
+                for t in direct[todo.pop()]:
+                    if t not in seen:
+                        seen.add(t)
+                        todo.append(t)
+            out[s] = frozenset(seen)
+        return out
 
     def member(self, term: Term, sort: str, env: tuple[str, ...] = ()) -> bool:
         return sort in self.state(term, env)

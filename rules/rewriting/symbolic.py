@@ -305,8 +305,8 @@ class Split:
 
     meta: str
     shape: Term
-    text: str
-    new: list[Node] = field(default_factory=list)
+    kind: str  # "con", "name" (one of the parameters), "other" (a name unlike ``new``)
+    new: list = field(default_factory=list)  # the new metavariables (for "other": the names)
 
 
 def split(calc: Calculus, meta: Node, labels: Callable[[str], str]) -> list[Split]:
@@ -328,12 +328,12 @@ def split(calc: Calculus, meta: Node, labels: Callable[[str], str]) -> list[Spli
             built.append(close(m, [b.name for b in bnames]) if bnames else m)
             binders.append(len(bnames))
         t = node(con, built, binders)
-        out.append(Split(meta.con, t, "", new))
+        out.append(Split(meta.con, t, "con", new))
     for ns in names_sorts:
-        for p in params:
-            if calc.names_sort_of(p.name) == ns:
-                out.append(Split(meta.con, p, ""))
-        out.append(Split(meta.con, fresh(ns), ""))
+        mine = [p for p in params if calc.names_sort_of(p.name) == ns]
+        for p in mine:
+            out.append(Split(meta.con, p, "name"))
+        out.append(Split(meta.con, fresh(ns), "other", list(mine)))  # type: ignore[arg-type]
     return out
 
 
@@ -772,20 +772,24 @@ def _has_context(p: Pattern) -> bool:
     return False
 
 
-def steps_keep_sorts(calc: Calculus, group: str | None = None) -> tuple[bool, str]:
-    """Whether every step of the calculus keeps (or enlarges) the set of sorts of the term it
-    is taken in: for every rule, every sort the left side may have is a sort the right side
-    surely has.  Then, as a node's sorts grow with its children's, a step anywhere keeps
-    every sort of every enclosing term."""
+def steps_keep_sorts(calc: Calculus, group: str | None = None, sort: str | None = None
+                     ) -> tuple[bool, str]:
+    """Whether a step keeps a term of ``sort`` in ``sort`` (every sort when None): for every
+    rule, every sort that a derivation in ``sort`` may use and the left side may have is a
+    sort the right side surely has.  A derivation of the term in ``sort`` then stays one
+    after the step (a node's sorts grow with its children's), wherever the step is taken."""
+    g = grammar(calc)
+    within = g.depends.get(sort, frozenset()) if sort is not None else None
     for rule in calc.rules_of(group):
         try:
             inst = instantiate_rule(calc, rule, (), lambda s: "M")
         except Stuck as e:
             return False, str(e)
-        sure = grammar(calc).state(inst.rhs)
+        sure = g.state(inst.rhs)
         for q in possible_states(calc, inst.lhs):
-            if not q <= sure:
-                missing = ", ".join(sorted(q - sure))
+            need = q if within is None else q & within
+            if not need <= sure:
+                missing = ", ".join(sorted(need - sure))
                 return False, f"rule {rule.name} may take a term of sort {missing} out of it"
     return True, ""
 

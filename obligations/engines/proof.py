@@ -82,7 +82,8 @@ PROVED, OPEN = "proved", "open"
 NEEDS_LEMMA, STUCK, SPLIT_LIMIT, SEARCH_CUT = "needs-lemma", "stuck", "split-limit", "search-cut"
 REWRITE_ROUNDS = 40
 SPLIT_BUDGET = 20  # splits in one induction, in all
-PROOF_SECONDS = 10.0  # then the cases not yet tried are left open
+PROOF_SECONDS = 5.0  # then the cases not yet tried are left open
+SEARCH_SPLITS = 3  # nested splits for a case decided by a search (each split multiplies it)
 SEARCH_NODES = 3000  # terms in one search of a proof case (also within `nodes`)
 
 
@@ -537,7 +538,9 @@ class Prover:
         if goal is not None and why != NEEDS_LEMMA:
             target = self._split_target(case, goal, relational=atom.relation is not None
                                         and atom.relation.kind not in ("==",))
-        if target is not None and depth < self.max_splits and counter[0] < SPLIT_BUDGET:
+        limit = self.max_splits if target is None or not _relational(atom) else min(
+            self.max_splits, SEARCH_SPLITS)
+        if target is not None and depth < limit and counter[0] < SPLIT_BUDGET:
             o = OPAQUES[target.con]
             calc = self.calc(o.calc)
             out: list[ProofCase] = []
@@ -553,7 +556,7 @@ class Prover:
             return out
         if target is not None:
             why = SPLIT_LIMIT
-            detail = f"more than {self.max_splits} nested splits or {SPLIT_BUDGET} in all"
+            detail = f"more than {limit} nested splits or {SPLIT_BUDGET} in all"
         calc = self.calc(atom.left.calculus)
         goal_text = (self.show(goal[0], calc), self.show(goal[1], calc)) if goal else None
         c = ProofCase(case.text, OPEN, steps, goal_text, why, detail)
@@ -940,6 +943,10 @@ def _first_meta(t: Node) -> str | None:
         if a is not None and a.kind == "meta":
             return o.template[0].con  # type: ignore[union-attr]
     return None
+
+
+def _relational(atom: Atom) -> bool:
+    return atom.relation is not None and atom.relation.kind != "=="
 
 
 def _substituted(t: Term) -> bool:

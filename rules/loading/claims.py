@@ -124,6 +124,8 @@ class ClaimResolver:
         self.loader = loader
         # metavariable -> (calculus, sort, how it was learnt)
         self.known: dict[str, tuple[str, str]] = {}
+        self.named_translations = {e.name for a in raw.atoms for e in _calls(a.left, a.right)
+                                   if e.name in translations}
         self.declared: set[str] = set()
 
     def fail(self, message: str, pos: Pos | None, hint: str | None = None):
@@ -213,6 +215,10 @@ class ClaimResolver:
                                                 for f in t.signatures] + list(self.translations))
             self.fail(f"unknown function {e.name}", e.pos, hint=hint)
         if len(options) > 1:
+            # the translation the claim names elsewhere settles it (cps(M)[x := psi(V)])
+            named = [o for o in options if o[0].name in self.named_translations]
+            if len(named) == 1:
+                return named[0]
             names = ", ".join(t.name for t, _ in options)
             self.fail(f"the function {e.name} is defined by several translations ({names})",
                       e.pos, hint="call it through a translation's own name, or rename it")
@@ -488,6 +494,17 @@ def _bare(*exprs: RawExpr | RawSubst | None) -> list[RawExpr]:
             out.extend(_bare(e.body, *(v for _, _, v in e.pairs)))
         elif e is not None and e.args is None:
             out.append(e)
+    return out
+
+
+def _calls(*exprs: RawExpr | RawSubst | None) -> list[RawExpr]:
+    out: list[RawExpr] = []
+    for e in exprs:
+        if isinstance(e, RawSubst):
+            out.extend(_calls(e.body, *(v for _, _, v in e.pairs)))
+        elif e is not None and e.args is not None:
+            out.append(e)
+            out.extend(_calls(*e.args))
     return out
 
 

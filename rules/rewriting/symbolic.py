@@ -468,6 +468,7 @@ class SymbolicTranslator:
     whose equation depends on an opaque part stays a call node."""
 
     def __init__(self, spec: Spec, tr: Translation):
+        _CALCS.update(spec.calculi)
         self.spec = spec
         self.tr = tr
         self.source = spec.calculi[tr.source]
@@ -475,9 +476,34 @@ class SymbolicTranslator:
         self.used: list[str] = []  # "fn.i" for every equation applied, in order
 
     def apply(self, fn: str, term: Term, extra: Sequence[Term] = ()) -> Term:
+        out = self._equations(fn, term, extra)
         if self.tr.normalize is not None:
-            raise Stuck(f"translation {self.tr.name} ends with `then normalize "
-                        f"{self.tr.normalize}`, which proofs do not run")
+            self._normalize(out)
+        return out
+
+    def _normalize(self, built: Term) -> None:
+        """A translation followed by ``then normalize GROUP``: its steps are run where they
+        fire for every instance, to show where the group still needs to see inside an opaque
+        part.  A proof never rests on such a result: the group's normal form is unique only
+        where it is confluent and terminating, which proofs do not assume."""
+        group = self.tr.normalize
+        t = built
+        for _ in range(64):
+            steps = symbolic_steps(self.target, t, group)
+            if not steps:
+                break
+            t = steps[0][2]
+        lhss = [r.lhs for r in self.target.rules_of(group)]
+        for s in _walk(t):
+            if isinstance(s, Node) and info(s) is None and any(_could_match(p, s) for p in lhss):
+                raise Stuck(f"group {group} of {self.target.name} may still apply at "
+                            f"{show(lambda n: _CALCS.get(n), s, self.target)}: its rules need "
+                            "to see inside an opaque part")
+        raise Stuck(f"translation {self.tr.name} ends with `then normalize {group}`; proofs "
+                    "do not rest on normal forms (their uniqueness needs the group confluent "
+                    f"and terminating); the normal form here is {show(_CALCS.get, t, self.target)}")
+
+    def _equations(self, fn: str, term: Term, extra: Sequence[Term] = ()) -> Term:
         if term.loose or any(e.loose for e in extra):
             raise Stuck("a call on a term with loose bound names")
         sig = self.tr.signatures[fn]
@@ -502,7 +528,25 @@ class SymbolicTranslator:
         raise Stuck(f"no equation of {fn} matches this case")
 
     def _call(self, fn: str, args: Sequence[Term]) -> Term:
-        return self.apply(fn, args[0], args[1:])
+        # inside the equations, calls build; a normalised translation normalises once
+        return self._equations(fn, args[0], args[1:])
+
+
+_CALCS: dict[str, Calculus] = {}
+
+
+def _could_match(p: Pattern, t: Term) -> bool:
+    """Could ``p`` match some instance of ``t`` (opaque parts matching anything)?"""
+    if info(t) is not None or isinstance(p, PMeta | PPlug):
+        return True
+    if isinstance(p, PName):
+        return isinstance(t, Name | Bound)
+    if isinstance(p, PCon):
+        if not isinstance(t, Node) or t.con != p.con or len(t.args) != len(p.args):
+            return False
+        return all(_could_match(a.body if isinstance(a, PAbs) else a, b)
+                   for a, b in zip(p.args, t.args, strict=True))
+    return True
 
 
 # ---------------------------------------------------------------- steps

@@ -441,7 +441,7 @@ class Prover:
         assert rel is not None
         if rel.kind == "==" or left is right:
             if left is right:
-                steps.append(ProofStep("both sides are the same term", "α-equality"))
+                steps.append(ProofStep("both sides are the same term", "alpha-equivalence"))
                 return True, steps, None, None, None
             return False, steps, (left, right), self._why_open(left, right), None
         return self._search(rel, left, right, rws, steps)

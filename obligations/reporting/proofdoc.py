@@ -73,13 +73,13 @@ def _markdown(spec_file: str, verdicts: Sequence[Verdict]) -> str:
 
 
 def tex_text(s: str) -> str:
-    """Plain text with every special character escaped."""
-    return "".join(_TEX.get(c, c) for c in s)
+    """Plain text with every special character escaped (and nothing beyond ASCII)."""
+    return "".join(_TEX.get(c, c if c.isascii() else "?") for c in s)
 
 
 def tex_term(s: str) -> str:
     """A term or formula in math mode, typewriter, spaces kept."""
-    body = "".join(_TEX.get(c, r"\ " if c == " " else c) for c in s)
+    body = "".join(_TEX.get(c, r"\ " if c == " " else (c if c.isascii() else "?")) for c in s)
     return rf"$\mathtt{{{body}}}$"
 
 

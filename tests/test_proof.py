@@ -22,9 +22,7 @@ DEMO = ROOT / "rules" / "demo"
 
 
 def verdicts(path: Path, engine: str = "proof", **bounds) -> dict:
-    from calcscout.rules.core.spec import Bounds
-
-    from calcscout.rules.core.spec import Confluent, Terminating
+    from calcscout.rules.core.spec import Bounds, Confluent, Terminating
 
     spec = load_file(path)
     claims = [c for c in spec.claims if engine != "proof"

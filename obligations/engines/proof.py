@@ -580,7 +580,7 @@ class Prover:
             for t in goal:
                 for s in _rule_blocked(t, self._rule_lhss):
                     o = OPAQUES[s.con]
-                    cand = s.con if o.kind == "meta" else (o.blocker or _first_meta(s))
+                    cand = s.con if o.kind == "meta" else (o.blocker or _call_meta(s))
                     if cand in present:
                         return _identity(present[cand])
             del calc
@@ -935,7 +935,7 @@ def _rule_blocked(t: Term, lhss: list) -> list[Node]:
     return out
 
 
-def _first_meta(t: Node) -> str | None:
+def _call_meta(t: Node) -> str | None:
     """The metavariable a call waits for when it was made on one."""
     o = OPAQUES[t.con]
     if o.kind == "call" and o.template:

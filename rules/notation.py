@@ -95,6 +95,10 @@ TOP = -1  # the level of a whole term
 JUXTAPOSITION = 101  # above every declared precedence (0-100): binds tightest
 ATOM = 1000  # names, abstract forms, parenthesised terms, closed notations
 DEFAULT_PREC = 50
+# The most tokens one notation may have.  The term parser's generator grows
+# with the cube of a notation's length (128 tokens: 0.2 s, 500: 13 s); notations
+# on paper have a handful.
+MAX_NOTATION_TOKENS = 64
 
 
 @dataclass(frozen=True)
@@ -199,6 +203,97 @@ def _form_of(alt: AltCon, notation: Notation) -> _Form | None:
         level = JUXTAPOSITION if juxtaposition else DEFAULT_PREC
     return _Form(alt.con, tuple(items), "infix" if trail else "postfix", level,
                  notation.assoc or "left", False)
+
+
+_CLOSING = {")": "(", "]": "[", "}": "{"}
+
+
+def unbalanced_bracket(literals: Sequence[str]) -> str | None:
+    """What is wrong with the brackets among a notation's literals, or None.
+
+    >>> unbalanced_bracket(["(", ","]) is None
+    False
+    """
+    stack: list[str] = []
+    for lit in literals:
+        if lit in ("(", "[", "{"):
+            stack.append(lit)
+        elif lit in _CLOSING:
+            if not stack or stack[-1] != _CLOSING[lit]:
+                return f"{lit!r} closes nothing"
+            stack.pop()
+    if stack:
+        return f"{stack[-1]!r} is not closed"
+    return None
+
+
+def _pattern_key(calc: Calculus, alt: AltCon, form: _Form) -> tuple:
+    """What the term parser sees of a notation: its literals, where operands stand,
+    and the names sort of each bound name (a binder's spelling says its names sort)."""
+    key = []
+    for it in form.items:
+        if it.kind == "lit":
+            key.append(("lit", it.text))
+        elif it.kind == "binder":
+            arg, j = it.binds[0]
+            key.append(("binder", alt.args[arg].binders[j]))
+        else:
+            key.append(("arg", ""))
+    return tuple(key)
+
+
+def notation_problems(calc: Calculus, base: Calculus | None = None
+                      ) -> list[tuple[str, Pos, str | None]]:
+    """Notations of ``calc`` that the term parser could not read back: two
+    constructors with notations of the same pattern (``"M + N"`` twice, or
+    ``"\\x. M"`` and ``"\\y. M"`` over one names sort), or a literal that spells a
+    name (a names metavariable, with digits or primes).  Pairs already in
+    ``base`` (the calculus extended, checked when it was loaded) are skipped."""
+    from .spec import base_meta
+
+    inherited = {id(a) for s in (base.sorts.values() if base else ()) for a in s.alts}
+    out: list[tuple[str, Pos, str | None]] = []
+    seen: dict[tuple, tuple[AltCon, tuple[int, ...]]] = {}
+    for sort in calc.sorts.values():
+        if sort.is_context:
+            continue
+        for alt in sort.alts:
+            if not isinstance(alt, AltCon) or alt.notation is None:
+                continue
+            new = id(alt) not in inherited
+            form = _form_of(alt, alt.notation)
+            if form is None:
+                continue
+            if new:
+                for it in form.items:
+                    owner = calc.metas.get(base_meta(it.text))
+                    if it.kind == "lit" and owner in calc.names_sorts and \
+                            re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*'*", it.text):
+                        out.append((f"the literal {it.text} of the notation "
+                                    f'"{alt.notation.text}" spells a name of {owner}',
+                                    alt.notation.pos,
+                                    "a name written so would be read as the literal; "
+                                    "choose another literal"))
+                        break
+            key = _pattern_key(calc, alt, form)
+            order = tuple(it.arg for it in form.items if it.kind == "arg")
+            first = seen.get(key)
+            if first is None:
+                seen[key] = (alt, order)
+                continue
+            other, other_order = first
+            if other.con == alt.con and other_order == order:
+                continue
+            if not new and id(other) in inherited:
+                continue
+            assert other.notation is not None
+            out.append((f'the notation "{alt.notation.text}" of {alt.con} reads like the '
+                        f'notation "{other.notation.text}" of {other.con} (at '
+                        f"{other.notation.pos}): a term written with it could be either",
+                        alt.notation.pos,
+                        "give one of them another literal token; binders that bind names "
+                        "of different names sorts are told apart by the name's spelling"))
+    return out
 
 
 class _Reading:

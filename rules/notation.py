@@ -330,10 +330,30 @@ class _Reading:
             a.kind == "arg" and b.kind == "arg"
             for f in self.forms for a, b in zip(f.items, f.items[1:], strict=False)
         )
+        # One terminal for the names of each names sort: a binder in a notation takes
+        # only names of its own sort, so "\\x. M" and "\\k. M" are told apart by the
+        # spelling of the bound name.
+        self.name_terminals: dict[str | None, str] = {
+            ns: f"NAME_{i}" for i, ns in enumerate(calc.names_sorts)} or {None: "NAME_0"}
         # The punctuation of the abstract form is always a token.
         self.symbols = tuple(sorted(
             {t for t in self.literals if _is_symbol_run(t)} | {"."}, key=len, reverse=True
         ))
+
+    def name_terminal(self, word: str) -> str:
+        """The terminal of a name: that of the names sort its spelling belongs to."""
+        got = self.name_terminals.get(self.calc.names_sort_of(word))
+        return got if got is not None else next(iter(self.name_terminals.values()))
+
+    def binder_terminal(self, con: str, item: _Item) -> str:
+        arg, j = item.binds[0]
+        got = self.name_terminals.get(self.binder_sort(con, arg, j))
+        return got if got is not None else next(iter(self.name_terminals.values()))
+
+    def escaped(self, word: str) -> bool:
+        """Must the free name ``word`` be written with a backquote to read back
+        as a name (it spells a constructor or a literal of a notation)?"""
+        return word in self.cons or word in self.literals
 
     def arity(self, con: str) -> tuple[int, ...] | None:
         shape = self.calc.shapes.get(con)
@@ -422,16 +442,17 @@ def print_abstract(calc: Calculus, term: Term) -> str:
     >>> print_abstract(calc, node("lam", [node("app", [bound(0), name("y")])], [1]))
     'lam(x.app(x, y))'
     """
-    namer = _Namer(_reading(calc), term)
+    reading = _reading(calc)
+    namer = _Namer(reading, term)
 
     def go(t: Term, env: list[str]) -> str:
         if isinstance(t, Name):
-            return t.name
+            return _free_name(reading, t.name)
         if isinstance(t, Bound):
             return env[-1 - t.index]
         assert isinstance(t, Node)
         if not t.args:
-            return t.con
+            return _nullary(reading, t.con)
         parts = []
         for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
             names = _bind(namer, t.con, i, k, env)
@@ -440,6 +461,18 @@ def print_abstract(calc: Calculus, term: Term) -> str:
         return f"{t.con}({', '.join(parts)})"
 
     return go(term, [])
+
+
+def _free_name(reading: _Reading, text: str) -> str:
+    """A free name as it reads back: with a backquote where it spells a constructor
+    or a literal of the calculus (which the parser would read as such)."""
+    return f"`{text}" if reading.escaped(text) else text
+
+
+def _nullary(reading: _Reading, con: str) -> str:
+    """A nullary constructor as it reads back: ``c()`` where ``c`` alone would be
+    read as a literal of another constructor's notation."""
+    return f"{con}()" if con in reading.literals else con
 
 
 def _bind(namer: _Namer, con: str, arg: int, k: int, env: list[str]) -> list[str]:
@@ -467,7 +500,7 @@ def print_term(calc: Calculus, term: Term) -> str:
 
     def go(t: Term, env: list[str]) -> _Printed:
         if isinstance(t, Name):
-            return _Printed(t.name, ATOM, False, False)
+            return _Printed(_free_name(reading, t.name), ATOM, False, False)
         if isinstance(t, Bound):
             return _Printed(env[-1 - t.index], ATOM, False, False)
         assert isinstance(t, Node)
@@ -476,7 +509,7 @@ def print_term(calc: Calculus, term: Term) -> str:
                 t.binders == form_arity(form):
             return with_form(t, form, env)
         if not t.args:
-            return _Printed(t.con, ATOM, False, False)
+            return _Printed(_nullary(reading, t.con), ATOM, False, False)
         parts = []
         for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
             names = _bind(namer, t.con, i, k, env)
@@ -559,7 +592,7 @@ def _may_glue(left: str, right: str) -> bool:
 
 _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*'*")
 _NUMBER = re.compile(r"[0-9]+")
-_SYMBOLS = re.compile(r"[^\sA-Za-z0-9_()\[\]{},]+")
+_SYMBOLS = re.compile(r"[^\sA-Za-z0-9_()\[\]{},`]+")  # a backquote starts a name
 _PUNCT = {"(": "LPAR", ")": "RPAR", ",": "COMMA", ".": "DOT"}
 
 
@@ -586,6 +619,14 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
         if c.isspace():
             pos += 1
             continue
+        if c == "`":
+            # `y: the name y, even where y spells a constructor or a literal
+            m = _IDENT.match(text, pos + 1)
+            if m is None:
+                raise _error(text, file, pos, "a backquote must be followed by a name")
+            tokens.append(token(reading.name_terminal(m.group()), m.group(), pos))
+            pos = m.end()
+            continue
         m = _IDENT.match(text, pos)
         if m:
             word = m.group()
@@ -607,7 +648,7 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
                 raise _error(text, file, pos, f"unknown constructor {word}",
                              len(word), hint=_known_cons_hint(reading))
             else:
-                tokens.append(token("NAME", word, pos))
+                tokens.append(token(reading.name_terminal(word), word, pos))
             pos = after
             continue
         m = _NUMBER.match(text, pos)
@@ -687,10 +728,11 @@ class _TermParser:
         self.reading = reading
         self.terminals = _terminal_names(reading)
         self.display = {v: k for k, v in self.terminals.items()}
+        self.names = frozenset(reading.name_terminals.values())
         self.grammar = self._grammar()
         self.lark = Lark(self.grammar, parser="earley", lexer=_TokenList,
                          keep_all_tokens=True, start="start", ambiguity="resolve")
-        self.starters = {"NAME", "CON", "CALLCON", "LPAR"} | {
+        self.starters = {*self.names, "CON", "CALLCON", "LPAR"} | {
             self.terminals[f.items[0].text] for f in reading.forms if f.items[0].kind == "lit"
         }
 
@@ -713,7 +755,7 @@ class _TermParser:
                 if it.kind == "lit":
                     symbols.append(self.terminals[it.text])
                 elif it.kind == "binder":
-                    symbols.append("NAME")
+                    symbols.append(self.reading.binder_terminal(form.con, it))
                 else:
                     slot = form.slot(j)
                     if slot.enclosed:
@@ -730,7 +772,8 @@ class _TermParser:
             rules[f"c_{n}"] = [f"c_{nxt}"]
             rules[f"o_{n}"] = [f"o_{nxt}"]
         rules["c_atom"] = [
-            "NAME -> name", "CON -> bare", "CALLCON LPAR args? RPAR -> call",
+            *(f"{t} -> name" for t in sorted(self.names)),
+            "CON -> bare", "CALLCON LPAR args? RPAR -> call",
             f"LPAR {top} RPAR -> paren",
         ]
         rules["o_atom"] = ["c_atom"]
@@ -744,10 +787,11 @@ class _TermParser:
                 rules[f"c_{at}"].append(expansion(k, form, "c"))
                 # a postfix term is closed, and open-allowed terms include closed ones
                 rules[f"o_{at}"].append(expansion(k, form, "o"))
-        lines = [f"start: {top}", "args: arg (COMMA arg)*", f"arg: (NAME DOT)* {top}"]
+        any_name = "(" + " | ".join(sorted(self.names)) + ")"
+        lines = [f"start: {top}", "args: arg (COMMA arg)*", f"arg: ({any_name} DOT)* {top}"]
         for lhs, alts in rules.items():
             lines.append(f"?{lhs}: " + "\n    | ".join(dict.fromkeys(alts)))
-        declared = sorted({"NAME", "CON", "CALLCON", *self.terminals.values()})
+        declared = sorted({*self.names, "CON", "CALLCON", *self.terminals.values()})
         lines.append("%declare " + " ".join(declared))
         return "\n".join(lines) + "\n"
 
@@ -756,12 +800,12 @@ class _TermParser:
     def describe(self, expected: set[str]) -> str:
         parts: list[str] = []
         rest = set(expected)
-        if "NAME" in rest and rest & (self.starters - {"NAME"}):
+        if rest & self.names and rest & (self.starters - self.names):
             parts.append("a term")
             rest -= self.starters
-        elif "NAME" in rest:
+        elif rest & self.names:
             parts.append("a name")
-            rest.discard("NAME")
+            rest -= self.names
         shown = sorted(repr(self.display[t]) for t in rest if t in self.display)
         parts.extend(shown)
         if "$END" in rest:
@@ -836,7 +880,7 @@ class _TermParser:
         return node(form.con, closed, binders)
 
     def _token(self, tok: Token, text: str, file: str) -> Term:
-        if tok.type == "NAME":
+        if tok.type in self.names:
             return name(tok.value)
         con = tok.value
         if self.reading.arity(con):
@@ -862,7 +906,7 @@ class _TermParser:
         args = []
         for i, (arg, k) in enumerate(zip(given, expected, strict=True)):
             parts = arg.children
-            binder_names = [p.value for p in parts[:-1] if p.type == "NAME"]
+            binder_names = [p.value for p in parts[:-1] if p.type in self.names]
             if len(binder_names) != k:
                 first = parts[0]
                 while isinstance(first, Tree):

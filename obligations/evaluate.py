@@ -15,7 +15,7 @@ from collections.abc import Iterator
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.notation import print_abstract
+from rules.notation import print_abstract, print_abstract_at
 from rules.rewrite import join, position_text, reduction_graph, reducts
 from rules.sorts import grammar
 from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
@@ -233,12 +233,12 @@ class Evaluator:
             if left is right:
                 return Outcome(OK)
             calc = self.calc(atom.left.calculus)
-            pos, a, c = first_difference(calc, left, right)
+            pos, _, _ = first_difference(calc, left, right)
+            # each subterm with the bound names its whole term is printed with
+            a, c = print_abstract_at(calc, left, pos), print_abstract_at(calc, right, pos)
             return Outcome(FAIL, evidence=(
-                f"{lt} and {rt} differ at position {position_text(pos)}: "
-                f"{print_abstract(calc, a)} versus {print_abstract(calc, c)}"),
-                details={"position": position_text(pos), "left_subterm": print_abstract(calc, a),
-                         "right_subterm": print_abstract(calc, c)})
+                f"{lt} and {rt} differ at position {position_text(pos)}: {a} versus {c}"),
+                details={"position": position_text(pos), "left_subterm": a, "right_subterm": c})
         calc = self.calc(calc_name)
         if rel.kind in ("->", "->="):
             if rel.kind == "->=" and left is right:

@@ -443,24 +443,54 @@ def print_abstract(calc: Calculus, term: Term) -> str:
     'lam(x.app(x, y))'
     """
     reading = _reading(calc)
-    namer = _Namer(reading, term)
+    return _abstract(reading, _Namer(reading, term), term, [])
 
-    def go(t: Term, env: list[str]) -> str:
-        if isinstance(t, Name):
-            return _free_name(reading, t.name)
-        if isinstance(t, Bound):
-            return env[-1 - t.index]
-        assert isinstance(t, Node)
-        if not t.args:
-            return _nullary(reading, t.con)
-        parts = []
-        for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
-            names = _bind(namer, t.con, i, k, env)
-            body = go(a, env + names)
-            parts.append("".join(f"{n}." for n in names) + body)
-        return f"{t.con}({', '.join(parts)})"
 
-    return go(term, [])
+def print_abstract_at(calc: Calculus, whole: Term, path: Sequence[int]) -> str:
+    """The subterm of ``whole`` at ``path`` (argument indices from the root), in
+    abstract form, its bound names those that printing ``whole`` gives them: so
+    evidence about a subterm speaks the names of the term it was shown with."""
+    reading = _reading(calc)
+    namer = _Namer(reading, whole)
+    env: list[str] = []
+    t = whole
+    for i in path:
+        assert isinstance(t, Node) and i < len(t.args), (path, t)
+        env = env + _bind(namer, t.con, i, t.binders[i], env)
+        t = t.args[i]
+    return _abstract(reading, namer, t, env)
+
+
+def _abstract(reading: _Reading, namer: _Namer, term: Term, env: list[str]) -> str:
+    """``term`` in abstract form under binders named ``env`` (innermost last).
+
+    Iterative, so that a deeply nested term prints without exhausting Python's stack."""
+    out: list[str] = []
+    todo: list = [(term, env)]
+    while todo:
+        t, names = todo.pop()
+        if isinstance(t, str):
+            out.append(t)
+        elif isinstance(t, Name):
+            out.append(_free_name(reading, t.name))
+        elif isinstance(t, Bound):
+            out.append(names[-1 - t.index])
+        else:
+            assert isinstance(t, Node)
+            if not t.args:
+                out.append(_nullary(reading, t.con))
+                continue
+            pieces: list = [f"{t.con}("]
+            for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
+                bound_names = _bind(namer, t.con, i, k, names)
+                if i:
+                    pieces.append(", ")
+                pieces.append("".join(f"{n}." for n in bound_names))
+                pieces.append((a, names + bound_names))
+            pieces.append(")")
+            for p in reversed(pieces):
+                todo.append((p, names) if isinstance(p, str) else p)
+    return "".join(out)
 
 
 def _free_name(reading: _Reading, text: str) -> str:

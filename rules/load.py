@@ -139,6 +139,10 @@ class Loader:
             return Spec(str(self.top), calculi, {}, ())
         translations = build_translations(raw_trs, calculi, self)
         top_file = self.files[0]
+        for f in self.files:
+            for pos in f.bounds_lines[1:]:
+                self.error(f"a second bounds line (the first is at {f.bounds_lines[0]})", pos,
+                           hint="put every bound of the file on one bounds line")
         bounds = self.bounds(top_file.bounds)
         broken = set(raw_trs) - set(translations)  # their errors are reported already
         claims = resolve_claims([c for f in self.files for c in f.claims], calculi,
@@ -157,11 +161,17 @@ class Loader:
 
     def bounds(self, items: list[tuple[str, int, Pos]]) -> Bounds:
         values: dict[str, int] = {}
+        first: dict[str, Pos] = {}
         for key, value, pos in items:
             if key not in BOUND_KEYS:
                 self.error(f"unknown bound {key!r}", pos,
                            hint="the bounds are size, steps, names and nodes")
                 continue
+            if key in first:
+                self.error(f"the bound {key} is given twice (first at {first[key]})", pos,
+                           hint="give each bound once")
+                continue
+            first[key] = pos
             least = 0 if key == "names" else 1
             if value < least:
                 self.error(f"the bound {key} must be at least {least}, not {value}", pos)

@@ -176,6 +176,7 @@ class RawFile:
     translations: list[RawTranslation] = field(default_factory=list)
     bounds: list[tuple[str, int, Pos]] = field(default_factory=list)
     claims: list[RawClaim] = field(default_factory=list)
+    bounds_lines: list[Pos] = field(default_factory=list)  # where each `bounds` item starts
 
 
 # ---------------------------------------------------------------- reading
@@ -226,6 +227,9 @@ def read_text_file(path: str | Path, shown: str | None = None) -> str:
 
 
 def parse_text(text: str, file: str) -> RawFile:
+    # Lines end with \n, \r\n or a lone \r: one form, so that positions count lines
+    # the way an editor does.
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
     remember_source(file, text)
     try:
         tree = _parser().parse(text)
@@ -341,6 +345,7 @@ class _Builder:
             elif kind == "translation":
                 out.translations.append(self.translation(item))
             elif kind == "bounds_item":
+                out.bounds_lines.append(self.pos(item.children[0]))
                 out.bounds.extend(self.bound(b) for b in item.children[1:] if isinstance(b, Tree))
             elif kind == "claim":
                 out.claims.append(self.claim(item))

@@ -46,6 +46,8 @@ def read_model(path: str) -> tuple[str, dict[str, int | bool]]:
             text = f.read()
     except OSError as e:
         raise UsageError(f"cannot read {path}: {e.strerror}") from None
+    except UnicodeDecodeError as e:
+        raise UsageError(f"{path} is not UTF-8 text (a bad byte at offset {e.start})") from None
     items = parse_sexprs(text, path)
     answer = next((x for x in items if isinstance(x, str)), None)
     if answer not in ("sat", "unsat", "unknown"):

@@ -121,7 +121,7 @@ def _safe(name: str) -> str:
 def read_header(path: str | os.PathLike) -> dict[str, str]:
     """The ``; calcscout-KEY: value`` lines of an exported file."""
     out: dict[str, str] = {}
-    with open(path, encoding="utf-8") as f:
+    with open(path, encoding="utf-8", errors="replace") as f:  # header lines are ASCII
         for line in f:
             if not line.startswith(";"):
                 if line.strip() and not line.startswith("("):

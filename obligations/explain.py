@@ -18,6 +18,8 @@ def load_report(path: str) -> dict:
         raise UsageError(f"{path} is not a JSON report ({e.msg} at line {e.lineno})") from None
     except OSError as e:
         raise UsageError(f"cannot read {path}: {e.strerror}") from None
+    except UnicodeDecodeError as e:
+        raise UsageError(f"{path} is not UTF-8 text (a bad byte at offset {e.start})") from None
     if not isinstance(data, dict) or not isinstance(data.get("claims"), list):
         raise UsageError(f"{path} is not a calcscout report")
     return data

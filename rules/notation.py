@@ -99,6 +99,11 @@ DEFAULT_PREC = 50
 # with the cube of a notation's length (128 tokens: 0.2 s, 500: 13 s); notations
 # on paper have a handful.
 MAX_NOTATION_TOKENS = 64
+# The largest object term the parser takes (tokens, and parentheses open at once).
+# The Earley parser's time grows faster than linearly with nesting (50,000
+# parentheses took 37 s and 825 MB); a printed counterexample has a few dozen.
+MAX_TERM_TOKENS = 5000
+MAX_TERM_DEPTH = 500
 
 
 @dataclass(frozen=True)
@@ -639,7 +644,20 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
     pos = 0
     n = len(text)
 
+    depth = 0
+
     def token(kind: str, value: str, start: int) -> Token:
+        nonlocal depth
+        if len(tokens) >= MAX_TERM_TOKENS:
+            raise _error(text, file, start, f"the term has more than {MAX_TERM_TOKENS} "
+                         "tokens, more than the term parser takes", len(value))
+        if value in "([{":
+            depth += 1
+            if depth > MAX_TERM_DEPTH:
+                raise _error(text, file, start, f"the term nests more than {MAX_TERM_DEPTH} "
+                             "parentheses", 1)
+        elif value in ")]}":
+            depth -= 1
         line, col = _line_col(text, start)
         return Token(kind, value, start_pos=start, line=line, column=col,
                      end_line=line, end_column=col + len(value), end_pos=start + len(value))

@@ -18,6 +18,11 @@ from .errors import FileError, Problem, remember_source
 from .spec import Pos
 
 MAX_FILE_BYTES = 4 * 1024 * 1024
+# The deepest nesting of constructors, pluggings, substitutions and calls in one
+# rule, equation or claim.  Patterns are taken apart by recursive functions; rules
+# on paper nest a handful of levels.
+MAX_NESTING = 500
+_NESTING = frozenset({"p_app", "p_plug", "p_subst", "e_call"})
 
 
 # ---------------------------------------------------------------- raw items
@@ -235,7 +240,26 @@ def parse_text(text: str, file: str) -> RawFile:
         tree = _parser().parse(text)
     except UnexpectedInput as e:
         raise FileError([_syntax_problem(e, text, file)]) from None
+    _check_nesting(tree, file)
     return _Builder(file, text).file(tree)
+
+
+def _check_nesting(tree: Tree, file: str) -> None:
+    """A FileError at the first pattern or expression nested deeper than
+    :data:`MAX_NESTING` (walked without recursion, so any depth is safe here)."""
+    todo: list[tuple[Tree, int]] = [(tree, 0)]
+    while todo:
+        t, depth = todo.pop()
+        if t.data in _NESTING:
+            depth += 1
+            if depth > MAX_NESTING:
+                meta = t.meta
+                raise FileError(
+                    f"this is nested more than {MAX_NESTING} levels deep",
+                    Pos(file, meta.line, meta.column, meta.column + 1),
+                    hint=f"a rule, equation or claim may nest at most {MAX_NESTING} "
+                         "constructors, pluggings, substitutions and calls")
+        todo.extend((c, depth) for c in t.children if isinstance(c, Tree))
 
 
 # ---------------------------------------------------------------- syntax errors

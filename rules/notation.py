@@ -32,7 +32,11 @@ Choices where the language is silent:
   of an operator (``x (\\y. y)``, ``x + (\\y. y)``), which the language allows,
   but not as the body of another open-ended one (``\\x. \\y. x``).
 - Bound names skip the calculus's literals and constructor names, which the
-  parser would not read back as names.
+  parser would not read back as names; a free name so spelled is printed with a
+  backquote (`` `y ``), which the parser reads as a name.
+- A name's terminal is that of its names sort (read off its spelling), so that
+  binder notations of one shape over different names sorts (``"\\x. M"``,
+  ``"\\k. M"``) are told apart.
 
 The parser is an Earley parser generated with lark from the calculus, one per
 calculus (cached); its grammar has, for every level, a nonterminal for terms

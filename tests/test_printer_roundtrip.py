@@ -27,6 +27,7 @@ from rules.terms import Term, bound, name, node
 DATA = Path(__file__).parent / "data"
 ARITH = load_file(DATA / "conformance" / "every-construct.calc").calculi["arith"]
 OPS = load_file(DATA / "notation" / "ops.calc").calculi["ops"]
+CLASH = load_file(DATA / "notation" / "clash.calc").calculi["clash"]
 
 # Free names: canonical ones (which bound names must then avoid), others, primes.
 FREE = ("x", "y", "z", "x1", "a", "k'")
@@ -59,7 +60,7 @@ def raw_terms(calc: Calculus, max_size: int = 14) -> st.SearchStrategy[Term]:
     return st.integers(1, max_size).flatmap(lambda n: term(0, n))
 
 
-@pytest.mark.parametrize("calc", [ARITH, OPS], ids=["arith", "ops"])
+@pytest.mark.parametrize("calc", [ARITH, OPS, CLASH], ids=["arith", "ops", "clash"])
 def test_abstract_printing_round_trips(calc):
     @SETTINGS
     @given(raw_terms(calc))
@@ -69,7 +70,7 @@ def test_abstract_printing_round_trips(calc):
     check()
 
 
-@pytest.mark.parametrize("calc", [ARITH, OPS], ids=["arith", "ops"])
+@pytest.mark.parametrize("calc", [ARITH, OPS, CLASH], ids=["arith", "ops", "clash"])
 def test_notation_printing_round_trips(calc):
     @SETTINGS
     @given(raw_terms(calc))
@@ -80,7 +81,7 @@ def test_notation_printing_round_trips(calc):
     check()
 
 
-@pytest.mark.parametrize("calc", [ARITH, OPS], ids=["arith", "ops"])
+@pytest.mark.parametrize("calc", [ARITH, OPS, CLASH], ids=["arith", "ops", "clash"])
 def test_printed_terms_carry_no_droppable_parentheses(calc):
     from test_notation import droppable_parentheses
 
@@ -142,7 +143,7 @@ def test_an_empty_term_is_an_error_at_column_1(text):
 # ---------------------------------------------------------------- no ambiguity
 
 
-@pytest.mark.parametrize("calc", [ARITH, OPS], ids=["arith", "ops"])
+@pytest.mark.parametrize("calc", [ARITH, OPS, CLASH], ids=["arith", "ops", "clash"])
 def test_the_generated_grammar_is_unambiguous_on_printed_terms(calc):
     # The parser resolves ambiguities silently; this makes sure there are none
     # to resolve.  (The generated grammar and lexer are internals: a test of

@@ -800,6 +800,13 @@ class _TermParser:
             return f"{family}_atom"
 
         top = nt("o", TOP)
+        any_name = "(" + " | ".join(sorted(self.names)) + ")"
+        # A binder takes only names of its own names sort where another notation has
+        # the same literals and places (``"\\x. M"``, ``"\\k. M"``); elsewhere any name,
+        # as the abstract form does.
+        erased = [tuple(it.text if it.kind == "lit" else it.kind for it in f.items)
+                  for f in forms]
+        shared = [erased.count(e) > 1 for e in erased]
 
         def expansion(k: int, form: _Form, family: str) -> str:
             symbols = []
@@ -807,7 +814,10 @@ class _TermParser:
                 if it.kind == "lit":
                     symbols.append(self.terminals[it.text])
                 elif it.kind == "binder":
-                    symbols.append(self.reading.binder_terminal(form.con, it))
+                    if shared[k]:
+                        symbols.append(self.reading.binder_terminal(form.con, it))
+                    else:
+                        symbols.append(any_name)
                 else:
                     slot = form.slot(j)
                     if slot.enclosed:
@@ -839,7 +849,6 @@ class _TermParser:
                 rules[f"c_{at}"].append(expansion(k, form, "c"))
                 # a postfix term is closed, and open-allowed terms include closed ones
                 rules[f"o_{at}"].append(expansion(k, form, "o"))
-        any_name = "(" + " | ".join(sorted(self.names)) + ")"
         lines = [f"start: {top}", "args: arg (COMMA arg)*", f"arg: ({any_name} DOT)* {top}"]
         for lhs, alts in rules.items():
             lines.append(f"?{lhs}: " + "\n    | ".join(dict.fromkeys(alts)))

@@ -106,7 +106,7 @@ MAX_NOTATION_TOKENS = 64
 # The largest object term the parser takes (tokens, and parentheses open at once).
 # The Earley parser's time grows faster than linearly with nesting (50,000
 # parentheses took 37 s and 825 MB); a printed counterexample has a few dozen.
-MAX_TERM_TOKENS = 5000
+MAX_TERM_TOKENS = 2000
 MAX_TERM_DEPTH = 500
 
 

@@ -23,7 +23,8 @@ LAMBDA = load_file(ROOT / "rules" / "library" / "lambda.calc").calculi["lambda"]
 
 @pytest.mark.parametrize("text, message", [
     ("(" * 50_000 + "x" + ")" * 50_000, f"nests more than {MAX_TERM_DEPTH} parentheses"),
-    ("lam(x." * 50_000 + "x" + ")" * 50_000, f"nests more than {MAX_TERM_DEPTH} parentheses"),
+    ("lam(x." * 50_000 + "x" + ")" * 50_000, f"more than {MAX_TERM_TOKENS} tokens"),
+    ("(" * (MAX_TERM_DEPTH + 1) + "x", f"nests more than {MAX_TERM_DEPTH} parentheses"),
     ("x " * 50_000, f"more than {MAX_TERM_TOKENS} tokens"),
     ("\\x. " * 50_000 + "x", f"more than {MAX_TERM_TOKENS} tokens"),
 ])
@@ -39,8 +40,10 @@ def test_a_huge_command_line_term_is_refused_before_parsing(text: str, message: 
 
 def test_terms_within_the_limits_parse() -> None:
     depth = MAX_TERM_DEPTH
-    t = parse_term(LAMBDA, "lam(x." * (depth - 1) + "x" + ")" * (depth - 1))
-    assert t is not None
+    n = (MAX_TERM_TOKENS - 1) // 5  # lam ( x . and ) per level
+    t = parse_term(LAMBDA, "lam(x." * n + "x" + ")" * n)
+    assert t is parse_term(LAMBDA, "\\x. " * n + "x")
+    assert parse_term(LAMBDA, "x " * MAX_TERM_TOKENS) is not None
     assert parse_term(LAMBDA, "(" * depth + "x" + ")" * depth) is parse_term(LAMBDA, "x")
 
 

@@ -886,6 +886,16 @@ class _TermParser:
             if tok.type == "$END":
                 raise self._eof(text, file, set(e.expected)) from None
             expected = set(e.expected)
+            if tok.type in self.names and expected & self.names:
+                # a binder of a notation that takes names of another names sort
+                by_terminal = {t: ns for ns, t in self.reading.name_terminals.items()}
+                wanted = sorted(str(by_terminal[t]) for t in expected & self.names)
+                raise _error(text, file, tok.start_pos,
+                             f"the name {tok.value} belongs to the names sort "
+                             f"{by_terminal[tok.type]}; a name of {' or '.join(wanted)} is "
+                             "expected here", len(tok.value),
+                             hint="a name belongs to the names sort whose metavariable its "
+                                  "spelling extends") from None
             if self._complete(tokens[: tokens.index(tok)]):
                 expected.add("$END")  # lark's Earley does not list it
             raise _error(text, file, tok.start_pos,

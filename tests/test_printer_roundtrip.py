@@ -264,3 +264,18 @@ def test_binder_notations_of_one_shape_are_told_apart_by_the_names_sort():
     assert parse_term(clash, "\\x'. \\k1. k1 x'") is lam
     assert parse_term(clash, "\\z. z") is node("lam", [bound(0)], [1])
     assert print_term(clash, lam) == "\\x. \\k. k x"
+
+
+def test_a_binder_of_a_names_sort_no_notation_takes_is_named_in_the_error():
+    from rules.parse import load_text
+
+    calc = load_text("calculus t {\n  names var x y\n  names kvar k\n  names avar m\n"
+                     '  sort term M N ::= x | k | m | lam(x.M) "\\x. M" | klam(k.M) "\\k. M"'
+                     ' | app(M, N) "M N"\n}\n').calculi["t"]
+    with pytest.raises(TermError) as info:
+        parse_term(calc, "x \\m1. m1")
+    p = info.value.problems[0]
+    assert "the name m1 belongs to the names sort avar; a name of kvar or var is expected" \
+        in p.message
+    assert p.pos is not None and p.pos.column == 4
+    assert parse_term(calc, "lam(m.m)") is node("lam", [bound(0)], [1])  # abstract form: any

@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.spec import Bounds
+from calcscout.rules.core.spec import Bounds
 
 HOLDS = "holds"
 REFUTED = "refuted"

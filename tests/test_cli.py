@@ -8,7 +8,7 @@ from pathlib import Path
 
 import pytest
 
-from obligations.cli import main
+from calcscout.obligations.commands.cli import main
 
 DATA = Path(__file__).parent / "data"
 BASICS = str(DATA / "engine" / "basics.calc")

@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from rules.errors import SHOWN_LINE, Problem
-from rules.spec import Pos
+from calcscout.rules.core.errors import SHOWN_LINE, Problem
+from calcscout.rules.core.spec import Pos
 
 
 @pytest.mark.parametrize("column", [1, 30, 150, 250, 400, 498, 500])

@@ -5,9 +5,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from obligations.runner import RunOptions, run_claims
-from rules.notation import parse_term, print_abstract, print_abstract_at
-from rules.parse import load_file
+from calcscout.obligations.runner import RunOptions, run_claims
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term, print_abstract, print_abstract_at
 
 DATA = Path(__file__).parent / "data" / "notation"
 

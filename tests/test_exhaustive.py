@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from rules.errors import CalcError
-from rules.parse import load_text
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.loading.load import load_text
 
 CALC = """
 calculus a {

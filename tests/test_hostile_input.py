@@ -12,10 +12,10 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import CalcError, TermError
-from rules.notation import MAX_TERM_DEPTH, MAX_TERM_TOKENS, parse_term
-from rules.parse import load_file, load_text
-from rules.syntax import MAX_NESTING
+from calcscout.rules.core.errors import CalcError, TermError
+from calcscout.rules.loading.load import load_file, load_text
+from calcscout.rules.loading.syntax import MAX_NESTING
+from calcscout.rules.notation.notation import MAX_TERM_DEPTH, MAX_TERM_TOKENS, parse_term
 
 ROOT = Path(__file__).parent.parent
 LAMBDA = load_file(ROOT / "rules" / "library" / "lambda.calc").calculi["lambda"]
@@ -73,7 +73,8 @@ def test_nesting_up_to_the_limit_loads() -> None:
 def test_a_report_that_is_not_utf8_is_a_user_error(tmp_path: Path) -> None:
     report = tmp_path / "r.json"
     report.write_bytes(b'{"claims": ["caf\xe9"]}')
-    run = subprocess.run([sys.executable, "-m", "obligations.cli", "explain", str(report), "k"],
+    cli = "calcscout.obligations.commands.cli"
+    run = subprocess.run([sys.executable, "-m", cli, "explain", str(report), "k"],
                          capture_output=True, text=True, cwd=ROOT)
     assert run.returncode == 2, run.stderr
     assert "is not UTF-8 text" in run.stdout + run.stderr

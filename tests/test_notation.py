@@ -1,4 +1,4 @@
-"""Printing terms and parsing object terms (rules/notation.py; LANGUAGE.md §3, §4).
+"""Printing terms and parsing object terms (rules/notation/notation.py; LANGUAGE.md §3, §4).
 
 The conformance lines of tests/data/conformance/notation.txt are checked one by
 one against the calculus ``arith`` of every-construct.calc; the other tests pin
@@ -13,11 +13,11 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import TermError
-from rules.notation import notation_tokens, parse_term, print_abstract, print_term
-from rules.parse import load_file
-from rules.spec import AltCon, Calculus
-from rules.terms import Node, bound, name, node
+from calcscout.rules.core.errors import TermError
+from calcscout.rules.core.spec import AltCon, Calculus
+from calcscout.rules.core.terms import Node, bound, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import notation_tokens, parse_term, print_abstract, print_term
 
 DATA = Path(__file__).parent / "data"
 CONFORMANCE = DATA / "conformance"
@@ -308,7 +308,7 @@ def test_unknown_constructor_lists_the_known_ones():
 
 
 def test_a_calculus_without_notations_reads_the_abstract_form_only():
-    from rules.spec import AltNames, Arg, NamesSort, Shape, Sort
+    from calcscout.rules.core.spec import AltNames, Arg, NamesSort, Shape, Sort
 
     plain = Calculus(
         "plain", {"var": NamesSort("var", ("x", "y"))},
@@ -396,7 +396,7 @@ def test_every_kind_of_notation_prints(abstract, shown):
 
 
 def test_the_parser_is_built_once_per_calculus():
-    from rules import notation
+    from calcscout.rules.notation import notation
 
     assert notation._parser(OPS) is notation._parser(OPS)
 
@@ -405,7 +405,7 @@ def test_the_parser_is_built_once_per_calculus():
 
 
 def _load_calc(alts: str, extra: str = ""):
-    from rules.parse import load_text
+    from calcscout.rules.loading.load import load_text
 
     return load_text("calculus t {\n  names var x y\n  names kvar k\n"
                      f"  sort term M N ::= x | k | {alts}\n}}\n{extra}", "n.calc")
@@ -432,7 +432,7 @@ def test_notations_that_cannot_be_read_back_are_refused(alts: str, message: str)
     binders of one names sort, brackets closed wrongly or in the wrong order, literals
     spelling names with digits, the backquote, too many tokens; and that the position
     is the notation string's."""
-    from rules.errors import CalcError
+    from calcscout.rules.core.errors import CalcError
 
     with pytest.raises(CalcError) as info:
         _load_calc(alts)
@@ -447,7 +447,7 @@ def test_notations_that_cannot_be_read_back_are_refused(alts: str, message: str)
 
 
 def test_an_extension_reports_an_inherited_clash_once_and_a_new_one_at_itself() -> None:
-    from rules.errors import CalcError
+    from calcscout.rules.core.errors import CalcError
 
     ok = _load_calc('lam(x.M) "\\x. M" | klam(k.M) "\\k. M"',
                     "calculus u extends t {\n  sort term M N ::= pr(M, N) \"< M , N >\"\n}\n")

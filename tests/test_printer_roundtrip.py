@@ -1,4 +1,4 @@
-"""Printing then parsing gives back the very same interned term (rules/notation.py).
+"""Printing then parsing gives back the very same interned term (rules/notation/notation.py).
 
 Random terms are built from a calculus's constructor shapes, with bound indices
 in scope and a few free names, and need not be well sorted: the printer and the
@@ -18,11 +18,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from rules.errors import TermError
-from rules.notation import parse_term, print_abstract, print_term
-from rules.parse import load_file
-from rules.spec import Calculus
-from rules.terms import Term, bound, name, node
+from calcscout.rules.core.errors import TermError
+from calcscout.rules.core.spec import Calculus
+from calcscout.rules.core.terms import Term, bound, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term, print_abstract, print_term
 
 DATA = Path(__file__).parent / "data"
 ARITH = load_file(DATA / "conformance" / "every-construct.calc").calculi["arith"]
@@ -153,7 +153,7 @@ def test_the_generated_grammar_is_unambiguous_on_printed_terms(calc):
     # how the grammar is built.)
     from lark import Lark, Tree
 
-    from rules import notation
+    from calcscout.rules.notation import notation
 
     inner = notation._parser(calc)
     explicit = Lark(inner.grammar, parser="earley", lexer=notation._TokenList,
@@ -193,7 +193,7 @@ def _calculi():
 def _clashing_spellings(calc: Calculus) -> list[str]:
     """Free-name spellings that the parser would read otherwise: the calculus's
     constructors and the literals of its notations that are identifiers."""
-    from rules import notation
+    from calcscout.rules.notation import notation
 
     reading = notation._reading(calc)
     words = sorted(w for w in reading.cons | reading.literals if re.fullmatch(r"[A-Za-z_]\w*'*", w))
@@ -222,8 +222,8 @@ def test_every_enumerated_term_reads_back_up_to_size_5(calc):
 
 
 def _round_trip_enumerated(calc: Calculus, size: int, limit: int | None) -> None:
-    from rules.enumerate import enumerate_terms
-    from rules.terms import rename_free
+    from calcscout.rules.core.enumerate import enumerate_terms
+    from calcscout.rules.core.terms import rename_free
 
     clashing = _clashing_spellings(calc)
     checked = 0
@@ -267,7 +267,7 @@ def test_binder_notations_of_one_shape_are_told_apart_by_the_names_sort():
 
 
 def test_a_binder_of_a_names_sort_no_notation_takes_is_named_in_the_error():
-    from rules.parse import load_text
+    from calcscout.rules.loading.load import load_text
 
     calc = load_text("calculus t {\n  names var x y\n  names kvar k\n  names avar m\n"
                      '  sort term M N ::= x | k | m | lam(x.M) "\\x. M" | klam(k.M) "\\k. M"'

@@ -16,9 +16,9 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent.parent))
 
-from rules.errors import CalcError  # noqa: E402
-from rules.notation import MAX_NOTATION_TOKENS, parse_term  # noqa: E402
-from rules.parse import load_text  # noqa: E402
+from calcscout.rules.core.errors import CalcError  # noqa: E402
+from calcscout.rules.loading.load import load_text  # noqa: E402
+from calcscout.rules.notation.notation import MAX_NOTATION_TOKENS, parse_term  # noqa: E402
 
 
 def _rules(n: int) -> str:

@@ -456,3 +456,14 @@ def test_an_extension_reports_an_inherited_clash_once_and_a_new_one_at_itself() 
         _load_calc('add(M, N) "M + N"',
                    "calculus u extends t {\n  sort term M N ::= sub(M, N) \"M + N\"\n}\n")
     assert [p.pos.line for p in info.value.problems] == [7]
+
+
+def test_an_extension_whose_new_name_a_base_literal_spells_is_refused() -> None:
+    from calcscout.rules.core.errors import CalcError
+    from calcscout.rules.loading.load import load_text
+
+    base = 'calculus t {\n  names var x\n  sort term M N ::= x | pr(M, N) "M y N"\n}\n'
+    assert set(load_text(base).calculi) == {"t"}
+    with pytest.raises(CalcError) as info:
+        load_text(base + "calculus u extends t {\n  names var y\n}\n")
+    assert "the literal y of the notation \"M y N\" spells a name of var" in info.value.render()

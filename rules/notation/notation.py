@@ -273,17 +273,19 @@ def notation_problems(calc: Calculus, base: Calculus | None = None
             form = _form_of(alt, alt.notation)
             if form is None:
                 continue
-            if new:
-                for it in form.items:
-                    owner = calc.metas.get(base_meta(it.text))
-                    if it.kind == "lit" and owner in calc.names_sorts and \
-                            re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*'*", it.text):
-                        out.append((f"the literal {it.text} of the notation "
-                                    f'"{alt.notation.text}" spells a name of {owner}',
-                                    alt.notation.pos,
-                                    "a name written so would be read as the literal; "
-                                    "choose another literal"))
-                        break
+            for it in form.items:
+                owner = calc.metas.get(base_meta(it.text))
+                # an inherited notation whose literal spelt a name already was reported
+                known = not new and base is not None and \
+                    base.metas.get(base_meta(it.text)) in base.names_sorts
+                if it.kind == "lit" and owner in calc.names_sorts and not known and \
+                        re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*'*", it.text):
+                    out.append((f"the literal {it.text} of the notation "
+                                f'"{alt.notation.text}" spells a name of {owner}',
+                                alt.notation.pos,
+                                "a name written so would be read as the literal; "
+                                "choose another literal"))
+                    break
             key = _pattern_key(calc, alt, form)
             order = tuple(it.arg for it in form.items if it.kind == "arg")
             first = seen.get(key)

@@ -18,6 +18,7 @@ from calcscout.encoders.smtlib import obligation_query, read_header
 from calcscout.encoders.symbolic import evaluate, to_term
 from calcscout.rules.core.errors import CalcError, UsageError
 from calcscout.rules.core.spec import Bounds, Claim, Spec
+from calcscout.rules.loading.files import read_text
 
 
 def parse_sexprs(text: str, where: str) -> list:
@@ -41,29 +42,21 @@ def parse_sexprs(text: str, where: str) -> list:
 
 def read_model(path: str) -> tuple[str, dict[str, int | bool]]:
     """The solver's answer (``sat``, ``unsat``, ``unknown``) and its model's values."""
-    try:
-        with open(path, encoding="utf-8") as f:
-            text = f.read()
-    except OSError as e:
-        raise UsageError(f"cannot read {path}: {e.strerror}") from None
-    except UnicodeDecodeError as e:
-        raise UsageError(f"{path} is not UTF-8 text (a bad byte at offset {e.start})") from None
+    text = read_text(path, what="solver output")
     items = parse_sexprs(text, path)
     answer = next((x for x in items if isinstance(x, str)), None)
     if answer not in ("sat", "unsat", "unknown"):
         raise UsageError(f"{path} does not start with a solver's answer (sat, unsat or unknown)")
     values: dict[str, int | bool] = {}
 
-    def walk(x) -> None:
+    todo = list(reversed(items))  # a loop, not recursion: the output may be nested deep
+    while todo:
+        x = todo.pop()
         if isinstance(x, list):
             if len(x) == 5 and x[0] == "define-fun" and x[2] == []:
                 values[x[1].strip("|")] = _value(x[4], x[3], path)
-                return
-            for y in x:
-                walk(y)
-
-    for x in items:
-        walk(x)
+                continue
+            todo.extend(reversed(x))
     return answer, values
 
 
@@ -71,6 +64,10 @@ def _value(v, sort, path: str) -> int | bool:
     if sort == "Bool" and v in ("true", "false"):
         return v == "true"
     if sort == "Int":
+        digits = v if isinstance(v, str) else (v[1] if isinstance(v, list) and len(v) == 2
+                                               and v[0] == "-" and isinstance(v[1], str) else "")
+        if len(digits) > 1000:  # no model of a bounded encoding needs such a number
+            raise UsageError(f"{path}: a model value of {len(digits)} digits")
         if isinstance(v, str) and re.fullmatch(r"\d+", v):
             return int(v)
         if isinstance(v, list) and len(v) == 2 and v[0] == "-" and re.fullmatch(r"\d+", v[1]):

@@ -119,14 +119,15 @@ def _safe(name: str) -> str:
 
 def read_header(path: str | os.PathLike) -> dict[str, str]:
     """The ``; calcscout-KEY: value`` lines of an exported file."""
+    from calcscout.rules.loading.files import read_text  # regular files only, of bounded size
+
     out: dict[str, str] = {}
-    with open(path, encoding="utf-8", errors="replace") as f:  # header lines are ASCII
-        for line in f:
-            if not line.startswith(";"):
-                if line.strip() and not line.startswith("("):
-                    break
-                continue
-            m = re.match(r";\s*calcscout-(\w+):\s*(.*)$", line.rstrip("\n"))
-            if m:
-                out[m.group(1)] = m.group(2).strip()
+    for line in read_text(path, what="exported .smt2 file").splitlines(keepends=True):
+        if not line.startswith(";"):
+            if line.strip() and not line.startswith("("):
+                break
+            continue
+        m = re.match(r";\s*calcscout-(\w+):\s*(.*)$", line.rstrip("\n"))
+        if m:
+            out[m.group(1)] = m.group(2).strip()
     return out

@@ -81,10 +81,12 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
 
             v = run_smt(spec, ob, b, opts.timeout)
             v.seconds = time.perf_counter() - start
-            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json(),
+                        "empty": _empty_sorts(spec, ob, b)})
         elif enumeration.is_relational(ob):
             parts = _run_relational(spec, ob, b, opts)
-            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts]})
+            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts],
+                        "empty": _empty_sorts(spec, ob, b)})
         else:
             if opts.engine == "smt":
                 raise EncodingError(f"claim {claim.name}: {ob.text} is a rewriting question the "
@@ -96,6 +98,16 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
     return {"claim": claim.name, "file": claim.file, "formula": claim.text,
             "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
             "shard": list(opts.shard) if opts.shard else None}
+
+
+def _empty_sorts(spec: Spec, ob: Obligation, b: Bounds) -> list[str]:
+    """The quantified sorts with no term at all within the bounds (``M in lam.term``), for
+    the warning on a claim that holds without a single case."""
+    from calcscout.rules.core.enumerate import count_terms
+
+    assert b.size is not None and b.names is not None
+    return [f"{m.name} in {m.calculus}.{m.sort}" for m in ob.quantified
+            if count_terms(spec.calculi[m.calculus], m.sort, b.size, b.names) == 0]
 
 
 def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
@@ -134,6 +146,12 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
                                           o["group"], b, relational, cutoffs)
         else:
             v = Verdict.from_json(o["verdict"])
+        if "empty" in o and v.verdict == HOLDS and v.scope != "all" and v.tried == 0:
+            # vacuous: "holds" must not read as if anything had been tried
+            empty = o["empty"]
+            why = (f"{', '.join(empty)} {'has' if len(empty) == 1 else 'have'} no term"
+                   if empty else "the quantified metavariables have no values together")
+            v.warning = f"no case at all: {why} up to size {b.size} with {b.names} free name(s)"
         if o["head"]:
             head_v = v
         else:

@@ -8,6 +8,7 @@ own mistake.
 
 from __future__ import annotations
 
+import errno
 import os
 import sys
 import traceback
@@ -254,6 +255,8 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
     from calcscout.obligations.verdict import exit_code
 
     spec = load(file)
+    _check_outputs(spec.files, json_path, junit_path)
+    sources = _sources(spec) if shard else None  # the contents this run reads, for merge
     chosen = list(spec.claims)
     if claims:
         by_name = {c.name: c for c in spec.claims}
@@ -261,7 +264,7 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         if missing:
             raise UsageError(f"no claim {missing[0]} in {spec.file}",
                              hint="claims: " + (", ".join(by_name) or "none"))
-        chosen = [by_name[c] for c in claims]
+        chosen = [by_name[c] for c in dict.fromkeys(claims)]  # a claim named twice runs once
     progress = _ProgressLine()
     opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes), jobs, shard,
                       collect_all, engine, timeout, progress)
@@ -269,16 +272,46 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         verdicts, partials = run_claims(spec, chosen, opts)
     finally:
         progress.clear()
-    extra = {"shard": list(shard), "records": partials} if shard else None
+    extra = (_shard_fields(sources, shard, engine, timeout, collect_all, partials) if shard
+             else None)
     report = json_report(spec.file, verdicts, extra)
     if json_path is not None:
-        write_atomically(json_path, dumps(report))
+        write_atomically(json_path, dumps(report), spec.files)
     if junit_path is not None:
-        write_atomically(junit_path, junit_report(spec.file, verdicts))
+        write_atomically(junit_path, junit_report(spec.file, verdicts), spec.files)
     if json_path != "-":
         out = sys.stdout
         out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
+
+
+def _check_outputs(inputs, *paths: str | None) -> None:
+    """Refuse, before anything is computed, output paths that cannot or must not be written
+    (folders, devices, FIFOs, missing folders, the files read) or that are given twice."""
+    from calcscout.obligations.reporting.report import output_target
+
+    seen: dict[str, str] = {}
+    for p in paths:
+        if p is None:
+            continue
+        real = output_target(p, inputs)
+        if real != "-" and real in seen:
+            raise UsageError(f"{p} is given for two outputs (also as {seen[real]}); each "
+                             "report needs its own file")
+        seen[real] = p
+
+
+def _sources(spec: Spec) -> str:
+    from calcscout.rules.loading.files import sources_digest
+
+    return sources_digest(spec.files)
+
+
+def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, partials) -> dict:
+    """What a shard report records so that ``merge`` can tell shards of one run
+    (the same rule file contents, claims, bounds, engine, shard count) from others."""
+    return {"shard": list(shard), "sources": sources, "engine": engine, "timeout": timeout,
+            "all": collect_all, "records": partials}
 
 
 # ---------------------------------------------------------------- reduce
@@ -303,6 +336,7 @@ def reduce(file: str, calc_name: str, term: str, steps, nodes, dot_path, json_ou
     from calcscout.rules.rewriting.rewrite import find_cycle, normal_forms, reduction_graph
 
     spec = load(file)
+    _check_outputs(spec.files, dot_path, json_out)
     calc = calculus(spec, calc_name)
     t = parse_term(calc, term, "<TERM>")
     if not grammar(calc).state(t):
@@ -317,10 +351,10 @@ def reduce(file: str, calc_name: str, term: str, steps, nodes, dot_path, json_ou
             "edges": g.number_of_edges(), "complete": bool(g.graph["complete"]),
             "cut_by": g.graph["cut_by"], "normal_forms": [print_abstract(calc, n) for n in nfs],
             "cycles": cycle is not None}
-    if dot_path:
-        write_atomically(dot_path, graph_to_dot(calc, g))
+    if dot_path is not None:
+        write_atomically(dot_path, graph_to_dot(calc, g), spec.files)
     if json_out is not None:
-        write_atomically(json_out, dumps(info))
+        write_atomically(json_out, dumps(info), spec.files)
         return
     state = "complete" if info["complete"] else f"cut by the bound on {info['cut_by']}"
     click.echo(f"{print_term(calc, t)}: {info['nodes']} term(s), {info['edges']} step(s), {state}")
@@ -353,6 +387,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     from calcscout.rules.critical_pairs.critical import pairs_report
 
     spec = load(file)
+    _check_outputs(spec.files, json_out)
     cname, _, group = calc_name.partition(".")
     calc = calculus(spec, cname)
     if group and group not in calc.groups:
@@ -361,7 +396,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     b = spec.effective_bounds(Bounds(size=size, steps=steps, nodes=nodes))
     report = pairs_report(calc, b, group or None)
     if json_out is not None:
-        write_atomically(json_out, dumps(report))
+        write_atomically(json_out, dumps(report), spec.files)
         return
     ps = report["pairs"]
     depth = report.get("context_depth")
@@ -402,9 +437,34 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
     if claim is None:
         raise UsageError(f"no claim {claim_name} in {spec.file}",
                          hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
+    _check_export_folder(out_dir, spec, claim)
     b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
     for path in export_obligations(spec, claim, plan(spec, claim).obligations, b, out_dir):
         click.echo(str(path))
+
+
+def _check_export_folder(out_dir: str, spec: Spec, claim) -> None:
+    """``export -o DIR`` creates DIR itself when it is missing, but not DIR's missing
+    parents; a file it would write must be a regular file or new, and none of the rule files."""
+    from calcscout.encoders.smtlib import _safe
+    from calcscout.obligations.claims import plan
+    from calcscout.obligations.reporting.report import output_target
+
+    if out_dir == "":
+        raise UsageError("an empty path names no folder for the .smt2 files")
+    if os.path.lexists(out_dir) and not os.path.isdir(out_dir):
+        raise UsageError(f"{out_dir} is not a folder; export -o needs a folder for its .smt2 files")
+    if not os.path.isdir(out_dir):
+        parent = os.path.dirname(os.path.abspath(out_dir))
+        if not os.path.isdir(parent):
+            raise UsageError(f"cannot create {out_dir}: the folder {parent} does not exist",
+                             hint="export -o creates its own folder, not the folders above it")
+        return
+    p = plan(spec, claim)
+    for ob in ([p.head] if p.head else []) + list(p.parts):
+        for suffix in (".smt2", ".smt2.tmp"):  # the file and its temporary, renamed over it
+            output_target(os.path.join(out_dir, _safe(ob.name) + suffix), spec.files,
+                          "SMT-LIB file")
 
 
 # ---------------------------------------------------------------- merge and explain
@@ -416,10 +476,11 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
 def merge(reports: tuple[str, ...], output: str) -> None:
     """Combine the JSON reports of `check --shard I/N` runs into the report of one whole run."""
     from calcscout.obligations.commands.merge import merge_reports
-    from calcscout.obligations.reporting.report import dumps, write_atomically
+    from calcscout.obligations.reporting.report import dumps, output_target, write_atomically
 
-    merged = merge_reports(list(reports))
-    write_atomically(output, dumps(merged))
+    output_target(output, reports)
+    merged, inputs = merge_reports(list(reports), output)
+    write_atomically(output, dumps(merged), [*reports, *inputs])
     verdicts = [c["verdict"] for c in merged["claims"] if "part_of" not in c]
     from calcscout.obligations.verdict import exit_code
 
@@ -462,6 +523,11 @@ def main(argv: list[str] | None = None) -> None:
     """The console script: run the group, map user errors to exit 2 and bugs to exit 70."""
     try:
         cli.main(args=argv, prog_name="calcscout", standalone_mode=False)
+        _flush_stdout()
+    except SystemExit as e:
+        if e.code in (0, 1, 3):  # a verdict's status: its output must have reached stdout
+            _flush_stdout()
+        raise
     except CalcError as e:
         click.echo(e.render(), err=True)
         sys.exit(e.exit_code)
@@ -477,17 +543,60 @@ def main(argv: list[str] | None = None) -> None:
     except KeyboardInterrupt:
         click.echo("interrupted", err=True)
         sys.exit(130)
+    except OSError as e:
+        if e.errno not in _ENVIRONMENT_ERRORS:
+            _internal_error()
+        # the machine refused a write (a full disk, standard output on a full device):
+        # not a bug, and nothing to do with a traceback
+        _drop_stdout()
+        where = e.filename if e.filename else "to standard output"
+        click.echo(f"error: cannot write {where}: {e.strerror}", err=True)
+        sys.exit(2)
     except Exception:
-        click.echo("calcscout: internal error (this is a bug in calcscout, not in your files):",
-                   err=True)
-        if os.environ.get("CALCSCOUT_DEBUG"):
-            traceback.print_exc()
-        else:
-            etype, value, _ = sys.exc_info()
-            click.echo(f"  {etype.__name__}: {value}", err=True)
-            click.echo("  set CALCSCOUT_DEBUG=1 for the traceback", err=True)
-        sys.exit(70)
+        _internal_error()
     sys.exit(0)
+
+
+_ENVIRONMENT_ERRORS = {errno.ENOSPC, errno.EDQUOT, errno.EFBIG, errno.EIO, errno.EROFS}
+
+
+def _flush_stdout() -> None:
+    """Flush standard output now, so that a write it refuses is reported as such."""
+    try:
+        sys.stdout.flush()
+    except BrokenPipeError:  # the reader went away: nothing more to say to it
+        _drop_stdout()
+    except OSError as e:
+        if e.errno not in _ENVIRONMENT_ERRORS:
+            raise
+        _drop_stdout()
+        click.echo(f"error: cannot write to standard output: {e.strerror}", err=True)
+        sys.exit(2)
+
+
+def _drop_stdout() -> None:
+    """Point standard output at the null device, so that the interpreter's last flush of
+    what could not be written does not fail again at exit."""
+    try:
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+        os.close(null)
+    except (OSError, ValueError, AttributeError):
+        pass
+
+
+def _internal_error() -> None:
+    """Report the exception being handled as a bug: exit 70; the traceback only when
+    CALCSCOUT_DEBUG is set to something other than empty or 0."""
+    click.echo("calcscout: internal error (this is a bug in calcscout, not in your files):",
+               err=True)
+    if os.environ.get("CALCSCOUT_DEBUG", "").strip() not in ("", "0"):
+        traceback.print_exc()
+    else:
+        etype, value, _ = sys.exc_info()
+        click.echo(f"  {etype.__name__}: {value}", err=True)
+        click.echo("  set CALCSCOUT_DEBUG=1 for the traceback", err=True)
+    sys.exit(70)
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -1,21 +1,26 @@
 """Reports: the terminal report, the JSON report (LANGUAGE.md §9), JUnit XML.
 
 Files are written atomically (a temporary file in the same folder, then a
-rename), so a run that fails part-way leaves no half-written report behind.
+rename), so a run that fails part-way leaves no half-written report behind;
+only a regular file or a new path is ever written (see :func:`output_target`).
 """
 
 from __future__ import annotations
 
+import errno
 import json
 import os
+import stat
 import sys
 import tempfile
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
 
 from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
+from calcscout.rules.core.errors import UsageError
+from calcscout.rules.loading.files import file_kind, identity
 
 COLOURS = {HOLDS: "32", REFUTED: "31;1", INCONCLUSIVE: "33", "error": "35"}
 
@@ -77,7 +82,8 @@ def _summary(v: Verdict) -> str:
     if v.scope == "all" and v.verdict == HOLDS:
         return f"proved for all terms ({v.reason})  {secs}"
     if v.verdict == HOLDS:
-        return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}"
+        warn = f"  warning: {v.warning}" if v.warning else ""
+        return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}{warn}"
     if v.verdict == REFUTED and v.counterexample is None:
         return f"{v.reason or 'a part is refuted'}  {secs}"
     if v.verdict == REFUTED:
@@ -98,6 +104,8 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
     out.append(f"  bounds:   {_bounds_text(v)}")
     if v.reason and v.verdict != REFUTED:
         out.append(f"  why:      {v.reason}")
+    if v.warning:
+        out.append(f"  warning:  {v.warning}")
     ces = v.more or ([v.counterexample] if v.counterexample else [])
     for i, ce in enumerate(ces):
         title = "smallest counterexample" if i == 0 else f"counterexample {i + 1}"
@@ -139,24 +147,106 @@ def json_report(spec_file: str, verdicts: Sequence[Verdict], extra: dict | None 
     return out
 
 
-def write_atomically(path: str, text: str) -> None:
+def output_target(path: str, inputs: Iterable[str | os.PathLike] = (),
+                  what: str = "report") -> str:
+    """Where a report for ``path`` is written, or a UsageError (exit 2) saying why not.
+
+    ``-`` is standard output. Otherwise the path must name a regular file (a
+    symbolic link is followed to one) or a new file in an existing folder; a
+    folder, a device, a FIFO or a socket is refused, and so is any of the
+    files the run reads (``inputs``), compared by device and inode, not by
+    spelling. Called before anything is computed, and again just before
+    writing.
+    """
     if path == "-":
-        sys.stdout.write(text)
-        sys.stdout.flush()
+        return path
+    if path == "":
+        raise UsageError(f"an empty path names no {what} file", hint="give a file name, or - "
+                         "for standard output where the option takes it")
+    try:
+        real = os.path.realpath(path, strict=False)
+    except (OSError, ValueError) as e:
+        raise UsageError(f"cannot write {path}: {e}") from None
+    try:
+        st = os.stat(path)
+    except FileNotFoundError:
+        st = None
+    except OSError as e:
+        why = "a loop of symbolic links" if e.errno == errno.ELOOP else e.strerror
+        raise UsageError(f"cannot write {path}: {why}") from None
+    if st is not None:
+        if stat.S_ISDIR(st.st_mode):
+            raise UsageError(f"{path} is a folder; the {what} needs a file name",
+                             hint=f"for example {os.path.join(path, 'report.json')}")
+        if not stat.S_ISREG(st.st_mode):
+            raise UsageError(f"{path} is {file_kind(st.st_mode)}; calcscout writes a {what} only "
+                             "to a regular file or a new path")
+        mine = (st.st_dev, st.st_ino)
+        for f in inputs:
+            if identity(f) == mine:
+                same = "" if os.fspath(f) == path else f" (the file {os.fspath(f)})"
+                raise UsageError(f"{path} is one of the files this run reads{same}; "
+                                 f"writing the {what} there would destroy it",
+                                 hint="give another output path")
+        return real
+    if path.endswith(("/", os.sep)):  # a folder was meant, and it does not exist
+        raise UsageError(f"{path} names a folder, and there is none; the {what} needs a "
+                         "file name")
+    folder = os.path.dirname(real) or "."
+    if not os.path.isdir(folder):
+        raise UsageError(f"cannot write {path}: the folder {os.path.dirname(path) or folder} "
+                         "does not exist", hint="create it first; calcscout does not create "
+                         "folders for reports")
+    return real
+
+
+def write_atomically(path: str, text: str, inputs: Iterable[str | os.PathLike] = ()) -> None:
+    """Write ``text`` to ``path`` (``-``: standard output) whole or not at all.
+
+    A regular file is replaced by a rename of a temporary file in the same
+    folder (symbolic links are followed, so the link stays a link); the new
+    file keeps the mode of the file it replaces, or gets the usual mode
+    (0666 less the umask) when it is new.
+    """
+    if path == "-":
+        try:
+            sys.stdout.write(text)
+            sys.stdout.flush()
+        except BrokenPipeError:
+            raise
+        except OSError as e:
+            raise UsageError(f"cannot write to standard output: {e.strerror}") from None
         return
-    target = Path(path)
-    target.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", dir=target.parent)
+    target = Path(output_target(path, inputs))
+    try:
+        mode = stat.S_IMODE(os.stat(target).st_mode)
+    except FileNotFoundError:
+        mode = 0o666 & ~_umask()
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", dir=target.parent)
+    except OSError as e:
+        raise UsageError(f"cannot write {path}: {e.strerror}") from None
     try:
         with os.fdopen(fd, "w", encoding="utf-8") as f:
             f.write(text)
+            f.flush()
+            os.fchmod(f.fileno(), mode)
         os.replace(tmp, target)
-    except BaseException:
+    except BaseException as e:
         try:
             os.unlink(tmp)
         except FileNotFoundError:
             pass
+        if isinstance(e, OSError) and not isinstance(e, BrokenPipeError):
+            raise UsageError(f"cannot write {path}: {e.strerror}") from None
         raise
+
+
+def _umask() -> int:
+    """The process's umask (read by setting it and setting it back: a one-thread CLI)."""
+    mask = os.umask(0o022)
+    os.umask(mask)
+    return mask
 
 
 def dumps(data: Any) -> str:

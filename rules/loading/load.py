@@ -80,7 +80,10 @@ class Loader(Diagnostics):
 
     def read(self, path: Path, stack: list[Path], text: str | None = None,
              where: Pos | None = None) -> None:
-        real = path.resolve()
+        try:
+            real = path.resolve()
+        except (OSError, RuntimeError):  # a loop of symbolic links: the read below says so
+            real = Path(os.path.abspath(path))
         if real in stack:
             names = [p.name for p in stack[stack.index(real):]] + [real.name]
             self.error("include cycle: " + " -> ".join(names), where,

@@ -16,6 +16,7 @@ from lark.exceptions import UnexpectedCharacters, UnexpectedEOF, UnexpectedInput
 
 from calcscout.rules.core.errors import FileError, Problem, remember_source
 from calcscout.rules.core.spec import Pos
+from calcscout.rules.loading.files import read_bounded
 
 MAX_FILE_BYTES = 4 * 1024 * 1024
 # The deepest nesting of constructors, pluggings, substitutions and calls in one
@@ -215,7 +216,8 @@ def read_text_file(path: str | Path, shown: str | None = None) -> str:
             f"{MAX_FILE_BYTES // (1024 * 1024)} MiB",
             hint="is this the file you meant? rule files are small text files",
         )
-    data = p.read_bytes()
+    # the stated size is 0 for a device or a FIFO: the bounded reader refuses those
+    data = read_bounded(p, shown, MAX_FILE_BYTES, "rule file")
     nul = data.find(b"\0")
     if nul >= 0:
         raise FileError(f"{shown} is not a text file (a NUL byte at offset {nul})",

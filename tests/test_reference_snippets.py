@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from obligations.cli import main
+from calcscout.obligations.commands.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 REFERENCES = [ROOT / "rules" / "LANGUAGE.md", ROOT / "obligations" / "ENGINES.md"]

@@ -28,6 +28,7 @@ memo table of the search is reused) before it is reported.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import time
 from collections import Counter as Tally
 from dataclasses import dataclass
@@ -49,7 +50,7 @@ from rules.rewrite import (
     reduction_graph,
     reducts,
 )
-from rules.sorts import grammar
+from rules.sorts import EMPTY, Grammar, State, grammar
 from rules.spec import (
     Bounds,
     Calculus,
@@ -60,6 +61,7 @@ from rules.spec import (
     PMeta,
     PName,
     PPlug,
+    PSubst,
     Rule,
     Spec,
     Terminating,
@@ -249,6 +251,143 @@ def _binders(p: Pattern) -> set[str]:
     return set()
 
 
+#: Most combinations of sort states checked per rule by :func:`_keeps_sorts`.
+STATE_COMBINATIONS = 4096
+
+
+def _keeps_sorts(calc: Calculus, rule: Rule) -> str | None:
+    """Why a step by ``rule`` may take a term out of the grammar, or None.
+
+    The theorems are about unsorted rewriting.  They carry over to the sorted
+    calculus (whose left-hand sides match only terms of their metavariables'
+    sorts) when the terms that have sorts are closed under steps: then, with
+    every metavariable over a sort of every term, the calculus is the unsorted
+    system restricted to a set of terms closed under reduction.  Checked on the
+    sort automaton: for every choice of states for the left-hand side's
+    metavariables, the right-hand side's state must do, in every context, at
+    least as well as the left-hand side's
+    (:meth:`rules.sorts.Grammar.replacement_loss`).  "At least as well in
+    every context" is a preorder and a congruence, so the right-hand side's
+    state is computed from its metavariables' with the transitions, a
+    pending substitution ``M[x := N]`` counting as ``M`` when ``N`` does at
+    least as well as a name of ``x``'s names sort (each occurrence of the name
+    is a context in which it is replaced).  Sufficient, not necessary: a rule
+    that loses sorts only where its redex can never stand is refused as well.
+    """
+    g = grammar(calc)
+    scopes: dict[str, tuple[tuple[str, str], ...]] = {}  # meta -> (name, binder sort)
+    order: list[PMeta] = []
+
+    def collect(p: Pattern, env: tuple[tuple[str, str], ...]) -> None:
+        if isinstance(p, PMeta):
+            scopes[p.name] = env
+            order.append(p)
+        elif isinstance(p, PCon):
+            shape = calc.shapes.get(p.con)
+            for i, a in enumerate(p.args):
+                if isinstance(a, PAbs):
+                    bsorts = shape.binder_sorts[i] if shape is not None else ()
+                    sorts = bsorts if len(bsorts) == len(a.names) else \
+                        tuple(calc.metas.get(n, "") for n in a.names)
+                    collect(a.body, env + tuple(zip(a.names, sorts, strict=True)))
+                else:
+                    collect(a, env)
+        elif isinstance(p, PAbs):
+            collect(p.body, env)
+
+    collect(rule.lhs, ())
+    fresh = {(c.name.name, m) for c in rule.conditions if c.kind == "fresh"
+             for m in _metas_in(c.term)}
+    choices = [g.states_with(m.sort) for m in order]
+    total = 1
+    for c in choices:
+        total *= max(len(c), 1)
+    if total > STATE_COMBINATIONS:
+        return (f"keeping the sorts was not checked ({total} combinations of states "
+                f"of its metavariables, more than {STATE_COMBINATIONS})")
+    for combo in itertools.product(*choices):
+        assign = {m.name: q for m, q in zip(order, combo, strict=True)}
+        lost: list[str] = []
+        old = _state_of(calc, g, rule.lhs, assign, {}, scopes, fresh, lost)
+        new = _state_of(calc, g, rule.rhs, assign, {}, scopes, fresh, lost)
+        ctx = g.replacement_loss(old, new)
+        if ctx is None:
+            continue
+        where = "_"
+        for con, hole in ctx:
+            k = calc.shapes[con].arity
+            where = f"{con}({', '.join(where if j == hole else '_' for j in range(k))})"
+        metas = ", ".join(f"{m} in sorts {_sorts_text(q)}" for m, q in assign.items())
+        return (f"its reduct may leave the grammar (a redex in sorts {_sorts_text(old)}"
+                + (f", with {metas}" if metas else "")
+                + f", becomes a term in sorts {_sorts_text(new)}"
+                + (f" as far as known ({lost[0]})" if lost else "")
+                + (f", which {where} does not accept" if ctx else "") + ")")
+    return None
+
+
+def _sorts_text(q: State) -> str:
+    return ", ".join(sorted(q)) if q else "none"
+
+
+def _metas_in(p: Pattern) -> set[str]:
+    if isinstance(p, PMeta):
+        return {p.name}
+    if isinstance(p, PAbs):
+        return _metas_in(p.body)
+    if isinstance(p, PCon):
+        return {m for a in p.args for m in _metas_in(a)}
+    if isinstance(p, PSubst):
+        return _metas_in(p.body) | {m for _, q in p.pairs for m in _metas_in(q)}
+    return set()
+
+
+def _state_of(calc: Calculus, g: Grammar, p: Pattern, assign: dict[str, State],
+              env: dict[str, State], scopes, fresh, lost: list[str]) -> State:
+    """The state of ``p``'s instances when each metavariable has its
+    ``assign``-ed state, up to doing at least as well in every context (for
+    the right-hand side; EMPTY when nothing is known); ``env`` gives the state
+    a name stands for (its binder's names sort, or a substituted term's)."""
+    if isinstance(p, PName):
+        got = env.get(p.name)
+        return got if got is not None else g.names_state.get(p.names_sort, EMPTY)
+    if isinstance(p, PMeta):
+        q = assign.get(p.name)
+        if q is None:
+            return EMPTY
+        for n, ns in scopes.get(p.name, ()):
+            if (n, p.name) in fresh:
+                continue  # not a free name of the instance
+            now = env.get(n)
+            need = g.names_state.get(ns, EMPTY)
+            if now is None or g.replacement_loss(need, now) is not None:
+                lost.append(f"{p.name} with {n} replaced by a term in sorts "
+                            f"{_sorts_text(now or EMPTY)}, where {n} is in sorts "
+                            f"{_sorts_text(need)}")
+                return EMPTY  # nothing known
+        return q
+    if isinstance(p, PSubst):
+        inner = dict(env)
+        for x, q in p.pairs:
+            inner[x.name] = _state_of(calc, g, q, assign, env, scopes, fresh, lost)
+        return _state_of(calc, g, p.body, assign, inner, scopes, fresh, lost)
+    if isinstance(p, PCon):
+        shape = calc.shapes.get(p.con)
+        children = []
+        for i, a in enumerate(p.args):
+            if isinstance(a, PAbs):
+                inner = dict(env)
+                bsorts = shape.binder_sorts[i] if shape is not None else ()
+                for j, n in enumerate(a.names):
+                    ns = bsorts[j] if j < len(bsorts) else calc.metas.get(n, "")
+                    inner[n] = g.names_state.get(ns, EMPTY)
+                children.append(_state_of(calc, g, a.body, assign, inner, scopes, fresh, lost))
+            else:
+                children.append(_state_of(calc, g, a, assign, env, scopes, fresh, lost))
+        return g.delta(p.con, tuple(children))
+    return EMPTY
+
+
 def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | None, str | None]:
     """``(reason, None)`` when a published theorem proves ``calc`` (its
     ``group``) confluent, with its side conditions checked; otherwise
@@ -281,6 +420,10 @@ def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | 
     rules = calc.rules_of(group)
     for r in rules:
         why = _lhs_ok(calc, r, full)
+        if why is not None:
+            return None, f"rule {r.name}: {why}"
+    for r in rules:
+        why = _keeps_sorts(calc, r)
         if why is not None:
             return None, f"rule {r.name}: {why}"
     ov = critical.overlaps(calc, group)

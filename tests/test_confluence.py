@@ -201,3 +201,51 @@ def test_library_claims(file, expected):
         assert isinstance(claim.formula, Confluent | Terminating)
         got[claim.name] = decide(s, claim, b).verdict
     assert got == expected
+
+
+# ---------------------------------------------------------------- sorted systems
+
+
+@pytest.mark.parametrize("calc, rule, term, forms", [
+    ("boxed", "c_e", "k(box(c))", {"a", "k(box(e))"}),
+    ("boxed_beta", "beta", "app(lam(x.k(box(x))), a)", {"a", "k(box(a))"}),
+    ("boxed_closed", "c_e", "k(box(c))", {"a", "k(box(e))"}),
+])
+def test_no_theorem_when_a_reduct_can_leave_the_grammar(calc, rule, term, forms):
+    """Orthogonal (or parallel-closed) once the sorts are forgotten, yet not confluent:
+    a step takes a term out of every sort and a redex above it no longer matches.
+    Family: a theorem about unsorted rewriting applied to a sorted calculus whose
+    steps do not keep the sorts; checked: a rule losing a sort (c -> e under box), a
+    substitution of any term for a name that is a value (beta), Huet's parallel-closed
+    criterion, and that every library calculus keeps its verdict (lambda, lambda_eta,
+    ski, peano, bracket and the three CPS targets still proved)."""
+    s = spec("confluence/leaves-grammar.calc")
+    reason, why_not = confluence_theorem(s.calculi[calc])
+    assert reason is None
+    assert why_not.startswith(f"rule {rule}: its reduct may leave the grammar")
+    v = decide_confluent(s, calc, bounds())
+    assert v.verdict == "refuted" and v.scope != "all"
+    assert v.counterexample.terms["term"] == term
+    assert {v.counterexample.terms["left"], v.counterexample.terms["right"]} == forms
+    assert any(n.startswith("no theorem applies: rule") for n in v.notes)
+
+
+def test_a_step_that_keeps_the_sorts_still_proves():
+    s = spec("confluence/leaves-grammar.calc")
+    reason, _ = confluence_theorem(s.calculi["boxed_ok"])
+    assert reason is not None and "orthogonal" in reason
+    v = decide_confluent(s, "boxed_ok", bounds(), prove=False)
+    assert (v.verdict, v.undecided) == ("holds", 0)
+
+
+@pytest.mark.parametrize("file, calc", [
+    ("lambda.calc", "lambda"), ("lambda.calc", "lambda_eta"), ("ski.calc", "ski"),
+    ("plotkin-cps.calc", "cpsv"), ("arith-trs.calc", "peano"),
+])
+def test_library_steps_keep_their_sorts(file, calc):
+    # beta's argument may be any term, a name is a term: substituting keeps every
+    # context's sorts, so the theorems still apply.
+    from obligations.confluence import _keeps_sorts
+
+    c = spec(file).calculi[calc]
+    assert all(_keeps_sorts(c, r) is None for r in c.rules)

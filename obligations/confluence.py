@@ -118,10 +118,11 @@ def _bounds(b: Bounds) -> Bounds:
 # ---------------------------------------------------------------- cases
 
 
-def case_terms(calc: Calculus, bounds: Bounds):
+def case_terms(calc: Calculus, bounds: Bounds, first: int = 1, last: int | None = None):
     """Every term of every (non-context) sort, by increasing size, each once:
     a term of several sorts is taken with the first of them, and a sort
-    included in an earlier one is skipped."""
+    included in an earlier one is skipped.  Sizes ``first`` to ``last``
+    (default: the size bound)."""
     g = grammar(calc)
     sorts = [s for s in g.sort_names if not g.is_empty(s)]
     sorts.sort(key=lambda s: -len(g.states_with(s)))
@@ -129,7 +130,7 @@ def case_terms(calc: Calculus, bounds: Bounds):
     for s in sorts:
         if not any(g.included(s, k) for k in kept):
             kept.append(s)
-    for n in range(1, bounds.size + 1):
+    for n in range(first, (bounds.size if last is None else last) + 1):
         for i, s in enumerate(kept):
             for t in enumerate_terms(calc, s, n, bounds.names, min_size=n):
                 if i and any(k in g.state(t) for k in kept[:i]):
@@ -250,6 +251,10 @@ def _binders(p: Pattern) -> set[str]:
         return {n for a in p.args for n in _binders(a)}
     return set()
 
+
+#: Most cases enumerated beyond the size bound, looking for a failing case
+#: smaller than a critical pair's instance.
+EXTRA_CASES = 20000
 
 #: Most combinations of sort states checked per rule by :func:`_keeps_sorts`.
 STATE_COMBINATIONS = 4096
@@ -477,26 +482,42 @@ def decide_confluent(spec: Spec, what, bounds: Bounds, prove: bool = True) -> Ve
     tried = 0
     undecided = 0
     cuts: Tally[str] = Tally()
-    for t in case_terms(calc, b):
-        tried += 1
-        with paused_gc():
-            g = reduction_graph(calc, t, b.steps, b.nodes, group)
-            fork = _fork(g)
-        if fork is not None:
-            a, c, evidence = fork
-            if _recheck_fork(calc, group, t, a, c, b):
-                ce = Counterexample(t.size, {"term": print_abstract(calc, t),
-                                             "left": print_abstract(calc, a),
-                                             "right": print_abstract(calc, c)},
-                                    f"{evidence}: {_path_text(calc, g, a)}; "
-                                    f"{_path_text(calc, g, c)}")
-                return verdict(REFUTED, tried=tried, undecided=undecided,
-                               cut_by=_most(cuts), counterexample=ce, notes=notes)
-            notes.append(f"a fork from {print_abstract(calc, t)} did not survive the re-check")
-        if not g.graph["complete"]:
-            undecided += 1
-            cuts[g.graph["cut_by"]] += 1
-    # The critical pairs on instances: a failure that needs a larger term.
+
+    def scan(terms, count_undecided: bool = True) -> Counterexample | None:
+        """The first case of ``terms`` that fails definitely (re-checked)."""
+        nonlocal tried, undecided
+        for t in terms:
+            tried += 1
+            with paused_gc():
+                g = reduction_graph(calc, t, b.steps, b.nodes, group)
+                fork = _fork(g)
+            if fork is not None:
+                a, c, evidence = fork
+                if _recheck_fork(calc, group, t, a, c, b):
+                    return Counterexample(t.size, {"term": print_abstract(calc, t),
+                                                   "left": print_abstract(calc, a),
+                                                   "right": print_abstract(calc, c)},
+                                          f"{evidence}: {_path_text(calc, g, a)}; "
+                                          f"{_path_text(calc, g, c)}")
+                notes.append(f"a fork from {print_abstract(calc, t)} did not survive the "
+                             "re-check")
+            if count_undecided and not g.graph["complete"]:
+                undecided += 1
+                cuts[g.graph["cut_by"]] += 1
+        return None
+
+    def refuted(ce: Counterexample) -> Verdict:
+        return verdict(REFUTED, tried=tried, undecided=undecided, cut_by=_most(cuts),
+                       counterexample=ce, notes=notes)
+
+    ce = scan(case_terms(calc, b))
+    if ce is not None:
+        return refuted(ce)
+    # The critical pairs on instances: a failure that needs a larger term, or
+    # one whose peak's graph a bound cut.  The instance only shows that the
+    # claim is refuted; the counterexample reported is still the smallest case
+    # in enumeration order, so when the instance is beyond the size bound the
+    # enumeration goes on up to its size.
     ov = critical.overlaps(calc, group)
     found = []
     for p in ov.pairs:
@@ -504,16 +525,38 @@ def decide_confluent(spec: Spec, what, bounds: Bounds, prove: bool = True) -> Ve
         if j.status == "not-joinable" and j.instance is not None:
             found.append((j.instance[0].size, p, j.instance))
     for _, p, (peak, left, right) in sorted(found, key=lambda x: x[0]):
-        if _recheck_peak(calc, group, peak, left, right, b):
-            ce = Counterexample(peak.size, {"term": print_abstract(calc, peak),
-                                            "left": print_abstract(calc, left),
-                                            "right": print_abstract(calc, right)},
-                                f"critical pair of {p.outer} and {p.inner} at {p.where}: "
-                                f"{p.show(p.peak)} -> {p.show(p.left)} and -> "
-                                f"{p.show(p.right)}; on this instance the two reducts "
-                                "have complete reduction graphs that share no term")
-            return verdict(REFUTED, tried=tried, undecided=undecided, cut_by=_most(cuts),
-                           counterexample=ce, notes=notes)
+        if not _recheck_peak(calc, group, peak, left, right, b):
+            continue
+        pair_text = (f"critical pair of {p.outer} and {p.inner} at {p.where}: "
+                     f"{p.show(p.peak)} -> {p.show(p.left)} and -> {p.show(p.right)}")
+        if peak.size > b.size:
+            before = tried
+            ce = scan(itertools.islice(case_terms(calc, b, b.size + 1, peak.size),
+                                       EXTRA_CASES), count_undecided=False)
+            searched = tried - before
+            if ce is not None:
+                notes.append(f"beyond the size bound {b.size}: the {pair_text} fails on "
+                             f"an instance of size {peak.size}, {print_abstract(calc, peak)}; "
+                             "the enumeration went on up to that size for the smallest "
+                             "failing case")
+                return refuted(ce)
+            if searched >= EXTRA_CASES:
+                notes.append(f"beyond the size bound {b.size}, only {EXTRA_CASES} more "
+                             "case(s) were searched for a failing case smaller than this "
+                             "critical pair's instance")
+            else:
+                notes.append(f"beyond the size bound {b.size}: no case up to size "
+                             f"{peak.size} fails definitely within the steps and nodes "
+                             "bounds; this critical pair's instance does")
+        else:
+            notes.append("this critical pair's instance is within the size bound, but "
+                         "the bounds cut its reduction graph in the enumeration")
+        ce = Counterexample(peak.size, {"term": print_abstract(calc, peak),
+                                        "left": print_abstract(calc, left),
+                                        "right": print_abstract(calc, right)},
+                            f"{pair_text}; on this instance the two reducts have complete "
+                            "reduction graphs that share no term")
+        return refuted(ce)
     if ov.uses_contexts:
         notes.append(f"critical pairs: contexts unfolded to depth {ov.context_depth}")
     if undecided:

@@ -463,7 +463,8 @@ class Overlaps:
     def instances(self, pair: CriticalPair, bounds: Bounds, limit: int = INSTANCE_LIMIT
                   ) -> Iterator[Term]:
         """Concrete peaks: the pair's metavariables replaced by enumerated
-        terms (total size at most ``bounds.size``), smallest first."""
+        terms (total size at most ``bounds.size``), smallest first, with at
+        most ``bounds.names`` free names, as every case of the enumeration."""
         cons = [c for c in _cons_in(pair.peak) if c in self.table]
         name_metas = [n for n in pair.peak.free if n in self.names_table]
         g = grammar(self.calc)
@@ -475,7 +476,7 @@ class Overlaps:
         name_choices = []
         for n in name_metas:
             ns = calc.names_sorts.get(self.names_table[n].sort)
-            k = max(budget, 1)
+            k = budget  # with `names 0` a free name is no instance at all
             name_choices.append([ns.canonical_name(i) if ns is not None else f"x{i}"
                                  for i in range(k)])
         count = 0
@@ -495,8 +496,8 @@ class Overlaps:
                     inst = _instantiate(pair.peak, dict(zip(cons, bodies, strict=True)),
                                         {n: name(v) for n, v in zip(name_metas, names,
                                                                     strict=True)})
-                    if inst in seen:
-                        continue
+                    if inst in seen or len(inst.free) > budget:
+                        continue  # seen, or more free names than the bound allows
                     seen.add(inst)
                     yield inst
                     count += 1

@@ -101,7 +101,10 @@ def test_a_critical_pair_instance_refutes_beyond_the_enumerated_size():
     v = decide_confluent(spec("groups.calc"), "group", bounds(size=4))
     assert v.verdict == "refuted"
     assert v.counterexample.terms["term"] == "mul(mul(inv(x), x), x)"
-    assert "critical pair of assoc and left_inv" in v.counterexample.evidence
+    # found through the pair, reported as the smallest enumerated case beyond the bound
+    assert "two distinct normal forms" in v.counterexample.evidence
+    assert any("beyond the size bound 4: the critical pair of assoc and left_inv" in n
+               for n in v.notes)
 
 
 def test_huets_system_without_critical_pairs_is_not_confluent():
@@ -249,3 +252,40 @@ def test_library_steps_keep_their_sorts(file, calc):
 
     c = spec(file).calculi[calc]
     assert all(_keeps_sorts(c, r) is None for r in c.rules)
+
+
+# ---------------------------------------------------------------- smallest counterexample
+
+
+@pytest.mark.parametrize("size", [2, 3, 6])
+def test_the_counterexample_is_the_smallest_case_not_the_first_pair(size):
+    """A critical pair (h_kk/kk) fails at size 4; f(c, c), of size 3, fails too.
+    Family: a counterexample that comes from somewhere other than the enumeration
+    order; checked: a pair's instance beyond the size bound (the enumeration goes on
+    up to its size), within it (the enumeration comes first), the names bound on
+    pair instances (next test), and the group axioms beyond the bound (above)."""
+    v = decide_confluent(spec("confluence/smallest.calc"), "mixed", bounds(size=size))
+    assert v.verdict == "refuted"
+    assert v.counterexample.terms == {"term": "f(c, c)", "left": "a", "right": "b"}
+    assert v.counterexample.size == 3
+    beyond = [n for n in v.notes if n.startswith("beyond the size bound")]
+    assert bool(beyond) == (size < 3)
+    if beyond:
+        assert "critical pair of h_kk and kk" in beyond[0]
+
+
+def test_critical_pair_instances_respect_the_names_bound():
+    """p(q(M, x)) overlaps q(M, x) only on a free name: with `names 0` no case has
+    one, so nothing is refuted; with `names 1` the smallest case is p(q(x, x))."""
+    s = spec("confluence/smallest.calc")
+    v = decide_confluent(s, "named", bounds(size=4, names=0))
+    assert (v.verdict, v.scope, v.counterexample) == ("holds", "bounded", None)
+    v = decide_confluent(s, "named", bounds(size=2, names=1))
+    assert v.verdict == "refuted"
+    assert v.counterexample.terms == {"term": "p(q(x, x))", "left": "a", "right": "p(b)"}
+    from rules.critical import overlaps
+
+    ov = overlaps(s.calculi["named"])
+    (pair,) = ov.pairs
+    assert list(ov.instances(pair, bounds(size=4, names=0))) == []
+    assert all(len(t.free) <= 1 for t in ov.instances(pair, bounds(size=4, names=1)))

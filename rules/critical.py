@@ -370,8 +370,10 @@ class Overlaps:
             free_shown[n] = info.name if info is not None else n
         used = set(free_shown.values())
 
-        def preferred(body: Term, index: int) -> str | None:
-            # The name a metavariable's rule gave this binder, if one sees it.
+        def preferred(body: Term, index: int, ns: str | None) -> str | None:
+            # The name a metavariable's rule gave this binder, if one sees it
+            # as a name of the binder's own names sort (printing a binder
+            # with a name of another sort would not re-read as the same term).
             stack = [(body, 0)]
             while stack:
                 t, d = stack.pop()
@@ -380,19 +382,20 @@ class Overlaps:
                 info = self.table.get(t.con)
                 if info is not None:
                     for p, a in enumerate(t.args):
-                        if isinstance(a, Bound) and a.index == index + d and info.scope_names[p]:
+                        if isinstance(a, Bound) and a.index == index + d and \
+                                info.scope_names[p] and (ns is None or info.scope[p] == ns):
                             return info.scope_names[p]
                 stack.extend((a, d + k) for a, k in zip(t.args, t.binders, strict=True))
             return None
 
         def choose(con: str, i: int, j: int, env: list[str], body: Term, k: int) -> str:
-            want = preferred(body, k - 1 - j)
-            if want is not None and want not in used and want not in env:
-                return want
             shape = self.full.shapes.get(con)
             ns = None
             if shape is not None and i < shape.arity and j < len(shape.binder_sorts[i]):
                 ns = self.calc.names_sorts.get(shape.binder_sorts[i][j])
+            want = preferred(body, k - 1 - j, shape.binder_sorts[i][j] if ns else None)
+            if want is not None and want not in used and want not in env:
+                return want
             k = 0
             while True:
                 cand = ns.canonical_name(k) if ns is not None and ns.metas else \
@@ -784,12 +787,29 @@ def critical_pairs(calc: Calculus, group: str | None = None) -> list[CriticalPai
     return overlaps(calc, group).pairs
 
 
+def unordered(pairs: Sequence[CriticalPair]) -> list[CriticalPair]:
+    """Each overlap once: two rules overlapping at the root give the pair in
+    both orders, mirror images of each other (same peak up to renaming,
+    sides swapped); only the first is kept.  (The parallel-closed criterion
+    needs both orders, so :attr:`Overlaps.pairs` keeps them.)"""
+    def mirrored(p: CriticalPair) -> bool:
+        return not p.position and p.outer != p.inner
+
+    order: dict[frozenset[str], tuple[str, str]] = {}
+    for p in pairs:
+        if mirrored(p):
+            order.setdefault(frozenset(p.rules), p.rules)
+    # unification is symmetric: the pairs of the other order are the mirror images
+    out = [p for p in pairs if not mirrored(p) or order[frozenset(p.rules)] == p.rules]
+    return out
+
+
 def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None) -> dict:
     """``calcscout pairs`` output (LANGUAGE.md §9), with the context depth
     and the bounds used."""
     ov = overlaps(calc, group)
     out = []
-    for p in ov.pairs:
+    for p in unordered(ov.pairs):
         j = ov.joinability(p, bounds)
         entry = {"rules": list(p.rules), "position": p.where, "peak": p.show(p.peak),
                  "left": p.show(p.left), "right": p.show(p.right), "status": j.status,

@@ -37,12 +37,12 @@ from __future__ import annotations
 
 import dataclasses
 import itertools
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 
 from .enumerate import enumerate_tuples
 from .match import _context_alts
-from .rewrite import join, reducts, root_reducts
+from .rewrite import _Ball, join, reducts, root_reducts
 from .sorts import grammar
 from .spec import (
     AltCon,
@@ -61,13 +61,32 @@ from .spec import (
     Sort,
     base_meta,
 )
-from .terms import Bound, Name, Node, Term, bound, close, fresh_name, name, node, open_body
+from .terms import (
+    Bound,
+    Name,
+    Node,
+    Term,
+    bound,
+    close,
+    fresh_name,
+    name,
+    node,
+    open_body,
+    subterms,
+)
 from .unify import MetaInfo, UBound, UMeta, UName, UNode, UTerm, from_pattern, unify
 
 #: Context frames unfolded in a left-hand side ``E[P]`` when looking for overlaps.
 CONTEXT_DEPTH = 2
 #: Most instances tried per critical pair.
 INSTANCE_LIMIT = 3000
+#: Most terms the searches on one pair's instances explore together (at
+#: least twice the ``nodes`` bound): beyond, the pair's instance search stops,
+#: and says so.  Only an instance whose two reduction graphs are complete can
+#: refute a pair, so when the bounds cut every instance's graph the search
+#: could only spend time (bench_confluence.py, part 4: an explicit-substitution
+#: calculus without garbage collection).
+INSTANCE_TERMS = 100_000
 #: Most terms one parallel step may reach (the parallel-closed check gives up beyond).
 PARALLEL_LIMIT = 5000
 
@@ -234,6 +253,7 @@ class Joinability:
     instance: tuple[Term, Term, Term] | None = None
     cut_by: str | None = None
     tried: int = 0
+    stopped: str | None = None
 
 
 class Overlaps:
@@ -248,6 +268,8 @@ class Overlaps:
         self.rules = calc.rules_of(group)
         self.uses_contexts = any(_contexts_in(r.lhs) for r in self.rules)
         self.table: dict[str, MetaInfo] = {}  # constructor ?X -> the metavariable
+        # closed terms whose reduction graphs the bounds (steps, nodes) cut by nodes
+        self._cut_terms: dict[tuple[int, int], set[Term]] = {}
         self.names_table: dict[str, MetaInfo] = {}  # internal name -> names metavariable
         raw = self._overlaps()
         self.full = self._extend(self.rules)
@@ -440,7 +462,12 @@ class Overlaps:
         has_names = any(n in self.names_table for t in (pair.left, pair.right) for n in t.free)
         return not (has_names and any(r.conditions for r in self.sound_rules))
 
-    def joinability(self, pair: CriticalPair, bounds: Bounds) -> Joinability:
+    def joinability(self, pair: CriticalPair, bounds: Bounds,
+                    progress: Callable[[int], None] | None = None) -> Joinability:
+        """How ``pair`` fares: joinable for every instance (a symbolic common
+        reduct), not joinable (an instance whose two sides have complete
+        reduction graphs that share no term), or unknown.  ``progress`` is
+        called with the number of instances tried so far."""
         steps, nodes = bounds.steps or 10, bounds.nodes or 20000
         cut = None
         if pair.left is pair.right:
@@ -451,17 +478,58 @@ class Overlaps:
                 return Joinability("joinable", "symbolic", common=j.common)
             cut = j.cut_by
         tried = 0
+        budget = max(INSTANCE_TERMS, 2 * nodes)
+        spent = 0
         for inst_peak in self.instances(pair, bounds):
             tried += 1
+            if progress is not None and tried % 16 == 0:
+                progress(tried)
             found = concrete_sides(self.calc, pair, inst_peak, self.group)
             for left, right in found:
-                j = join(self.calc, left, right, steps, nodes, self.group)
-                if j.status == "not-joinable":
+                status, why, explored = self._refutes(left, right, steps, nodes)
+                spent += explored
+                if status == "not-joinable":
                     return Joinability("not-joinable", "instances", instance=(inst_peak, left, right),
                                        tried=tried)
-                if j.status == "unknown":
-                    cut = cut or j.cut_by
+                if status == "unknown":
+                    cut = cut or why
+            if spent > budget:
+                return Joinability("unknown", "instances", cut_by=cut or "nodes", tried=tried,
+                                   stopped=f"the instance search stopped after {spent} explored "
+                                   f"terms (at most {budget} for one pair)")
         return Joinability("unknown", "instances", cut_by=cut, tried=tried)
+
+    def _refutes(self, left: Term, right: Term, steps: int, nodes: int
+                 ) -> tuple[str, str | None, int]:
+        """Whether two concrete sides certainly do not join: ``(status, cut_by,
+        terms explored)``.  Both reduction graphs grow a layer at a time; the
+        search stops at the first common term, and as soon as either graph is
+        cut, since only two complete graphs can show that the sides never
+        join.  A side with a closed subterm whose graph was cut by ``nodes``
+        is cut too (each reduct of the subterm gives a distinct reduct of the
+        side, no farther away), so such a side is not explored again; the
+        terms are remembered for all pairs of the calculus."""
+        if left is right:
+            return "joinable", None, 0
+        known = self._cut_terms.setdefault((steps, nodes), set())
+        for side in (left, right):
+            if any(s.loose == 0 and s in known for _, s in subterms(side)):
+                return "unknown", "nodes", 0
+        balls = (_Ball(self.calc, left, steps, nodes, self.group),
+                 _Ball(self.calc, right, steps, nodes, self.group))
+        explored = 2
+        while not all(b.done for b in balls):
+            for b, other in (balls, balls[::-1]):
+                added = b.grow()
+                explored += len(added)
+                if any(t in other.graph for t in added):
+                    return "joinable", None, explored
+                info = b.graph.graph
+                if not info["complete"]:
+                    if info["cut_by"] == "nodes":
+                        known.add(info["root"])
+                    return "unknown", info["cut_by"], explored
+        return "not-joinable", None, explored
 
     def instances(self, pair: CriticalPair, bounds: Bounds, limit: int = INSTANCE_LIMIT
                   ) -> Iterator[Term]:
@@ -804,13 +872,21 @@ def unordered(pairs: Sequence[CriticalPair]) -> list[CriticalPair]:
     return out
 
 
-def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None) -> dict:
+def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None,
+                 progress: Callable[[str, int, int], None] | None = None) -> dict:
     """``calcscout pairs`` output (LANGUAGE.md §9), with the context depth
-    and the bounds used."""
+    and the bounds used.  ``progress(what, instances tried, most)`` is called
+    while a pair's instances are searched."""
     ov = overlaps(calc, group)
     out = []
-    for p in unordered(ov.pairs):
-        j = ov.joinability(p, bounds)
+    shown = unordered(ov.pairs)
+    total = len(shown)
+    for i, p in enumerate(shown, 1):
+        def step(tried: int, _what=f"pair {i}/{total} ({p.outer} / {p.inner})") -> None:
+            if progress is not None:
+                progress(_what, tried, INSTANCE_LIMIT)
+
+        j = ov.joinability(p, bounds, step)
         entry = {"rules": list(p.rules), "position": p.where, "peak": p.show(p.peak),
                  "left": p.show(p.left), "right": p.show(p.right), "status": j.status,
                  "how": j.how}
@@ -826,6 +902,8 @@ def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None) -> di
             entry["instances_tried"] = j.tried
         if j.cut_by:
             entry["cut_by"] = j.cut_by
+        if j.stopped:
+            entry["stopped"] = j.stopped
         out.append(entry)
     report = {"calculus": calc.name, "pairs": out, "bounds": bounds.as_dict()}
     if group is not None:

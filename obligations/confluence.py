@@ -5,7 +5,11 @@
     conditions checked (:func:`confluence_theorem`): an orthogonal system is
     confluent (Rosen 1973 for first-order systems, Klop 1980 for systems with
     binders); a left-linear system whose critical pairs are all
-    parallel-closed is confluent (Huet 1980; van Oostrom 1997 with binders);
+    parallel-closed is confluent (Huet 1980; van Oostrom 1997 with binders).
+    Those theorems are about unsorted rewriting: they are used only when
+    every step keeps a term inside the grammar (checked on the sort
+    automaton), since a reduct in no sort can stop a redex above it from
+    matching;
   - otherwise checked case by case: every term of every sort up to ``size``
     with at most ``names`` free names, smallest first.  A case fails
     definitely when its reduction graph reaches two distinct normal forms, or
@@ -14,7 +18,10 @@
     graph before that could be settled.  When no case fails, the critical
     pairs are tried on instances (:mod:`rules.critical`): a concrete peak
     whose two reducts do not join is a counterexample too (this is what
-    catches a failure that needs a term larger than ``size``).
+    catches a failure that needs a term larger than ``size``).  Such a
+    failure shows that the claim is refuted; the counterexample reported is
+    still the smallest failing case in enumeration order, the enumeration
+    going on past ``size`` up to the instance's size when it must.
 
 ``terminating C``
   case by case as well: a reduction cycle reachable from the term fails it
@@ -323,10 +330,11 @@ def _keeps_sorts(calc: Calculus, rule: Rule) -> str | None:
             k = calc.shapes[con].arity
             where = f"{con}({', '.join(where if j == hole else '_' for j in range(k))})"
         metas = ", ".join(f"{m} in sorts {_sorts_text(q)}" for m, q in assign.items())
-        return (f"its reduct may leave the grammar (a redex in sorts {_sorts_text(old)}"
-                + (f", with {metas}" if metas else "")
-                + f", becomes a term in sorts {_sorts_text(new)}"
-                + (f" as far as known ({lost[0]})" if lost else "")
+        head = (f"its reduct may leave the grammar (a redex in sorts {_sorts_text(old)}"
+                + (f", with {metas}" if metas else ""))
+        if lost:
+            return f"{head}; in the reduct {lost[0]})"
+        return (f"{head}, becomes a term in sorts {_sorts_text(new)}"
                 + (f", which {where} does not accept" if ctx else "") + ")")
     return None
 
@@ -366,9 +374,8 @@ def _state_of(calc: Calculus, g: Grammar, p: Pattern, assign: dict[str, State],
             now = env.get(n)
             need = g.names_state.get(ns, EMPTY)
             if now is None or g.replacement_loss(need, now) is not None:
-                lost.append(f"{p.name} with {n} replaced by a term in sorts "
-                            f"{_sorts_text(now or EMPTY)}, where {n} is in sorts "
-                            f"{_sorts_text(need)}")
+                lost.append(f"{n} (in sorts {_sorts_text(need)}) is replaced in {p.name} "
+                            f"by a term in sorts {_sorts_text(now or EMPTY)} only")
                 return EMPTY  # nothing known
         return q
     if isinstance(p, PSubst):
@@ -403,7 +410,8 @@ def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | 
     sort of every term (a restricted sort could be left by a reduct or a
     substitution, destroying a redex) and every name bound by the left-hand
     side; conditions only ``x fresh in T`` for such a name (which is the
-    pattern's own restriction, ``T``'s metavariables not seeing ``x``).  Then
+    pattern's own restriction, ``T``'s metavariables not seeing ``x``); every
+    rule's steps keeping terms in the grammar (:func:`_keeps_sorts`).  Then
     orthogonality (no critical pair) or parallel-closed critical pairs.  For
     systems with binders the parallel-closed case rests on van Oostrom's
     development-closed theorem for pattern rewriting (recalled from memory:

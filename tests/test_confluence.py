@@ -233,6 +233,19 @@ def test_no_theorem_when_a_reduct_can_leave_the_grammar(calc, rule, term, forms)
     assert any(n.startswith("no theorem applies: rule") for n in v.notes)
 
 
+def test_the_reason_names_a_context_that_refuses_the_reduct():
+    from rules.sorts import grammar
+
+    c = spec("confluence/leaves-grammar.calc").calculi["boxed"]
+    _, why_not = confluence_theorem(c)
+    assert "a redex in sorts term, val, becomes a term in sorts term" in why_not
+    assert "which box(_) does not accept" in why_not
+    g = grammar(c)
+    value, term = frozenset({"val", "term"}), frozenset({"term"})
+    assert g.replacement_loss(value, term) == [("box", 0)]
+    assert g.replacement_loss(term, value) is None  # more sorts never hurt
+
+
 def test_a_step_that_keeps_the_sorts_still_proves():
     s = spec("confluence/leaves-grammar.calc")
     reason, _ = confluence_theorem(s.calculi["boxed_ok"])

@@ -528,7 +528,7 @@ def decide_confluent(spec: Spec, what, bounds: Bounds, prove: bool = True) -> Ve
     # enumeration goes on up to its size.
     ov = critical.overlaps(calc, group)
     found = []
-    for p in ov.pairs:
+    for p in critical.unordered(ov.pairs):  # a mirror image joins as its original
         j = ov.joinability(p, b)
         if j.status == "not-joinable" and j.instance is not None:
             found.append((j.instance[0].size, p, j.instance))

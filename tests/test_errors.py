@@ -1,4 +1,4 @@
-"""Rendering user errors (rules.errors): the line quoted, the caret under the place."""
+"""Rendering user errors (calcscout.rules.core.errors): the line quoted, the caret under the place."""
 
 from __future__ import annotations
 

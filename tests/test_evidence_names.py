@@ -1,5 +1,5 @@
 """Evidence about a subterm names its bound variables as the whole term is printed
-(rules.notation.print_abstract_at, used by the evidence of ``==``)."""
+(calcscout.rules.notation.notation.print_abstract_at, used by the evidence of ``==``)."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""Exhaustiveness of a translation's equations (rules.exhaustive)."""
+"""Exhaustiveness of a translation's equations (calcscout.rules.loading.exhaustive)."""
 
 from __future__ import annotations
 

@@ -23,7 +23,11 @@ class Diagnostics:
         self.problems: list[Problem] = []
 
     def error(self, message: str, pos: Pos | None, hint: str | None = None) -> None:
-        self.problems.append(Problem(message, pos, hint))
+        problem = Problem(message, pos, hint)
+        # A base calculus's items are checked again for each calculus that
+        # extends it: the same message at the same place is reported once.
+        if problem not in self.problems:
+            self.problems.append(problem)
 
     def fail_if_problems(self) -> None:
         if self.problems:

@@ -90,7 +90,10 @@ def test_a_critical_pair_instance_refutes_beyond_the_enumerated_size():
     v = decide_confluent(spec("groups.calc"), "group", bounds(size=4))
     assert v.verdict == "refuted"
     assert v.counterexample.terms["term"] == "mul(mul(inv(x), x), x)"
-    assert "critical pair of assoc and left_inv" in v.counterexample.evidence
+    # found through the pair, reported as the smallest enumerated case beyond the bound
+    assert "two distinct normal forms" in v.counterexample.evidence
+    assert any("beyond the size bound 4: the critical pair of assoc and left_inv" in n
+               for n in v.notes)
 
 
 def test_huets_system_without_critical_pairs_is_not_confluent():
@@ -190,3 +193,101 @@ def test_library_claims(file, expected):
         assert isinstance(claim.formula, Confluent | Terminating)
         got[claim.name] = decide(s, claim, b).verdict
     assert got == expected
+
+
+# ---------------------------------------------------------------- sorted systems
+
+
+@pytest.mark.parametrize("calc, rule, term, forms", [
+    ("boxed", "c_e", "k(box(c))", {"a", "k(box(e))"}),
+    ("boxed_beta", "beta", "app(lam(x.k(box(x))), a)", {"a", "k(box(a))"}),
+    ("boxed_closed", "c_e", "k(box(c))", {"a", "k(box(e))"}),
+])
+def test_no_theorem_when_a_reduct_can_leave_the_grammar(calc, rule, term, forms):
+    """Orthogonal (or parallel-closed) once the sorts are forgotten, yet not confluent:
+    a step takes a term out of every sort and a redex above it no longer matches.
+    Family: a theorem about unsorted rewriting applied to a sorted calculus whose
+    steps do not keep the sorts; checked: a rule losing a sort (c -> e under box), a
+    substitution of any term for a name that is a value (beta), Huet's parallel-closed
+    criterion, and that every library calculus keeps its verdict (lambda, lambda_eta,
+    ski, peano, bracket and the three CPS targets still proved)."""
+    s = spec("confluence/leaves-grammar.calc")
+    reason, why_not = confluence_theorem(s.calculi[calc])
+    assert reason is None
+    assert why_not.startswith(f"rule {rule}: its reduct may leave the grammar")
+    v = decide_confluent(s, calc, bounds())
+    assert v.verdict == "refuted" and v.scope != "all"
+    assert v.counterexample.terms["term"] == term
+    assert {v.counterexample.terms["left"], v.counterexample.terms["right"]} == forms
+    assert any(n.startswith("no theorem applies: rule") for n in v.notes)
+
+
+def test_the_reason_names_a_context_that_refuses_the_reduct():
+    from calcscout.rules.core.sorts import grammar
+
+    c = spec("confluence/leaves-grammar.calc").calculi["boxed"]
+    _, why_not = confluence_theorem(c)
+    assert "a redex in sorts term, val, becomes a term in sorts term" in why_not
+    assert "which box(_) does not accept" in why_not
+    g = grammar(c)
+    value, term = frozenset({"val", "term"}), frozenset({"term"})
+    assert g.replacement_loss(value, term) == [("box", 0)]
+    assert g.replacement_loss(term, value) is None  # more sorts never hurt
+
+
+def test_a_step_that_keeps_the_sorts_still_proves():
+    s = spec("confluence/leaves-grammar.calc")
+    reason, _ = confluence_theorem(s.calculi["boxed_ok"])
+    assert reason is not None and "orthogonal" in reason
+    v = decide_confluent(s, "boxed_ok", bounds(), prove=False)
+    assert (v.verdict, v.undecided) == ("holds", 0)
+
+
+@pytest.mark.parametrize("file, calc", [
+    ("lambda.calc", "lambda"), ("lambda.calc", "lambda_eta"), ("ski.calc", "ski"),
+    ("plotkin-cps.calc", "cpsv"), ("arith-trs.calc", "peano"),
+])
+def test_library_steps_keep_their_sorts(file, calc):
+    # beta's argument may be any term, a name is a term: substituting keeps every
+    # context's sorts, so the theorems still apply.
+    from calcscout.obligations.engines.confluence import _keeps_sorts
+
+    c = spec(file).calculi[calc]
+    assert all(_keeps_sorts(c, r) is None for r in c.rules)
+
+
+# ---------------------------------------------------------------- smallest counterexample
+
+
+@pytest.mark.parametrize("size", [2, 3, 6])
+def test_the_counterexample_is_the_smallest_case_not_the_first_pair(size):
+    """A critical pair (h_kk/kk) fails at size 4; f(c, c), of size 3, fails too.
+    Family: a counterexample that comes from somewhere other than the enumeration
+    order; checked: a pair's instance beyond the size bound (the enumeration goes on
+    up to its size), within it (the enumeration comes first), the names bound on
+    pair instances (next test), and the group axioms beyond the bound (above)."""
+    v = decide_confluent(spec("confluence/smallest.calc"), "mixed", bounds(size=size))
+    assert v.verdict == "refuted"
+    assert v.counterexample.terms == {"term": "f(c, c)", "left": "a", "right": "b"}
+    assert v.counterexample.size == 3
+    beyond = [n for n in v.notes if n.startswith("beyond the size bound")]
+    assert bool(beyond) == (size < 3)
+    if beyond:
+        assert "critical pair of h_kk and kk" in beyond[0]
+
+
+def test_critical_pair_instances_respect_the_names_bound():
+    """p(q(M, x)) overlaps q(M, x) only on a free name: with `names 0` no case has
+    one, so nothing is refuted; with `names 1` the smallest case is p(q(x, x))."""
+    s = spec("confluence/smallest.calc")
+    v = decide_confluent(s, "named", bounds(size=4, names=0))
+    assert (v.verdict, v.scope, v.counterexample) == ("holds", "bounded", None)
+    v = decide_confluent(s, "named", bounds(size=2, names=1))
+    assert v.verdict == "refuted"
+    assert v.counterexample.terms == {"term": "p(q(x, x))", "left": "a", "right": "p(b)"}
+    from calcscout.rules.critical_pairs.critical import overlaps
+
+    ov = overlaps(s.calculi["named"])
+    (pair,) = ov.pairs
+    assert list(ov.instances(pair, bounds(size=4, names=0))) == []
+    assert all(len(t.free) <= 1 for t in ov.instances(pair, bounds(size=4, names=1)))

@@ -11,7 +11,7 @@ from conftest import load_calc as calc
 from calcscout.rules.core.spec import Bounds, Calculus
 from calcscout.rules.critical_pairs.critical import critical_pairs, overlaps, pairs_report, parallel_reducts
 from calcscout.rules.notation.notation import parse_term, print_abstract
-from calcscout.rules.rewriting.rewrite import join, reducts
+from calcscout.rules.rewriting.rewrite import join, reduction_graph, reducts
 
 BOUNDS = Bounds(size=5, steps=10, names=1, nodes=2000)
 
@@ -207,3 +207,56 @@ def test_a_names_metavariable_under_a_binder_splits_into_cases():
     c = calc("critical/soundness.calc", "names_under")
     got = {(p.rules, p.show(p.peak)) for p in critical_pairs(c)}
     assert got == {(("under", "var_f"), "lam(x.f(x))"), (("under", "var_f"), "lam(x.f(y))")}
+
+
+# ---------------------------------------------------------------- instance search
+
+
+def test_the_instance_search_of_a_pair_is_bounded_and_says_so(monkeypatch):
+    """lambda_x with composition and no garbage collection: every instance of the
+    comp/var pair has a reduction graph the bounds cut, so no instance can refute it;
+    the search stops after a budget of explored terms, and the report says so.
+    Family: searches that spend time where no definite answer can come; checked: an
+    instance search continuing after one side's graph was cut (it stops at once),
+    a side containing a closed subterm already cut by nodes (not explored again,
+    next test), and a refutable pair (groups) still refuted."""
+    import calcscout.rules.critical_pairs.critical as critical
+
+    monkeypatch.setattr(critical, "INSTANCE_TERMS", 3000)
+    c = calc("critical/explicit-subst.calc", "lambda_xc_nogc")
+    b = Bounds(size=6, steps=4, names=1, nodes=200)
+    ov = overlaps(c)
+    pair = next(p for p in ov.pairs if p.rules == ("comp", "var"))
+    j = ov.joinability(pair, b)
+    assert (j.status, j.how, j.cut_by) == ("unknown", "instances", "steps")
+    assert j.stopped is not None and "stopped after" in j.stopped
+    assert 0 < j.tried < critical.INSTANCE_LIMIT
+    report = pairs_report(c, b)
+    entry = next(p for p in report["pairs"] if p["rules"] == ["comp", "var"])
+    assert entry["status"] == "unknown" and "stopped" in entry
+    # the other four pairs join for every instance
+    assert sorted(p["status"] for p in report["pairs"]) == ["joinable"] * 4 + ["unknown"]
+
+
+def test_a_subterm_cut_by_nodes_cuts_the_term_around_it():
+    # The lifting the instance search relies on: each reduct of a closed subterm
+    # gives a distinct reduct of the term, no farther away.
+    c = calc("critical/explicit-subst.calc", "lambda_xc_nogc")
+    t = parse_term(c, "sub(x.sub(y.y, x), x)")
+    g = reduction_graph(c, t, 10, 50)
+    assert (g.graph["complete"], g.graph["cut_by"]) == (False, "nodes")
+    for around in ("app(sub(x.sub(y.y, x), x), x)", "lam(z.sub(x.sub(y.y, x), x))",
+                   "sub(z.z, sub(x.sub(y.y, x), x))"):
+        assert not reduction_graph(c, parse_term(c, around), 10, 50).graph["complete"]
+
+
+def test_explicit_substitution_pairs():
+    # lambda_sigma (Abadi, Cardelli, Curien and Levy 1991): its eleven pairs, the
+    # Clos and Ass families join for every instance; App over Beta leaves
+    # S o id against S, which joins on the ground instances tried.
+    c = calc("critical/explicit-subst.calc", "lambda_sigma")
+    report = pairs_report(c, BOUNDS)
+    got = {tuple(p["rules"]): p["status"] for p in report["pairs"]}
+    assert len(got) == 11
+    assert got.pop(("app", "beta")) == "unknown"
+    assert set(got.values()) == {"joinable"}

@@ -409,7 +409,11 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
         raise UsageError(f"calculus {cname} has no rule group {group}",
                          hint="groups: " + (", ".join(calc.groups) or "none"))
     b = spec.effective_bounds(Bounds(size=size, steps=steps, nodes=nodes))
-    report = pairs_report(calc, b, group or None)
+    progress = _ProgressLine()
+    try:
+        report = pairs_report(calc, b, group or None, progress)
+    finally:
+        progress.clear()
     if json_out is not None:
         write_atomically(json_out, dumps(report), spec.files)
         return
@@ -428,6 +432,11 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
         if "instance" in p and p["status"] == "not-joinable":
             inst = p["instance"]
             click.echo(f"     instance {inst['peak']} -> {inst['left']} / {inst['right']}")
+        elif p["status"] == "unknown" and "instances_tried" in p:
+            cut = f", cut by {p['cut_by']}" if p.get("cut_by") else ""
+            click.echo(f"     {p['instances_tried']} instance(s) tried, none refutes{cut}")
+            if "stopped" in p:
+                click.echo(f"     {p['stopped']}")
 
 
 @cli.command()

@@ -5,7 +5,11 @@
     conditions checked (:func:`confluence_theorem`): an orthogonal system is
     confluent (Rosen 1973 for first-order systems, Klop 1980 for systems with
     binders); a left-linear system whose critical pairs are all
-    parallel-closed is confluent (Huet 1980; van Oostrom 1997 with binders);
+    parallel-closed is confluent (Huet 1980; van Oostrom 1997 with binders).
+    Those theorems are about unsorted rewriting: they are used only when
+    every step keeps a term inside the grammar (checked on the sort
+    automaton), since a reduct in no sort can stop a redex above it from
+    matching;
   - otherwise checked case by case: every term of every sort up to ``size``
     with at most ``names`` free names, smallest first.  A case fails
     definitely when its reduction graph reaches two distinct normal forms, or
@@ -14,7 +18,10 @@
     graph before that could be settled.  When no case fails, the critical
     pairs are tried on instances (:mod:`calcscout.rules.critical_pairs.critical`): a concrete peak
     whose two reducts do not join is a counterexample too (this is what
-    catches a failure that needs a term larger than ``size``).
+    catches a failure that needs a term larger than ``size``).  Such a
+    failure shows that the claim is refuted; the counterexample reported is
+    still the smallest failing case in enumeration order, the enumeration
+    going on past ``size`` up to the instance's size when it must.
 
 ``terminating C``
   case by case as well: a reduction cycle reachable from the term fails it
@@ -28,6 +35,7 @@ memo table of the search is reused) before it is reported.
 from __future__ import annotations
 
 import dataclasses
+import itertools
 import time
 from collections import Counter as Tally
 from dataclasses import dataclass
@@ -36,7 +44,7 @@ import networkx as nx
 
 from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
 from calcscout.rules.core.enumerate import enumerate_terms
-from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.sorts import EMPTY, Grammar, State, grammar
 from calcscout.rules.core.spec import (
     Bounds,
     Calculus,
@@ -47,6 +55,7 @@ from calcscout.rules.core.spec import (
     PMeta,
     PName,
     PPlug,
+    PSubst,
     Rule,
     Spec,
     Terminating,
@@ -115,10 +124,11 @@ def _bounds(b: Bounds) -> Bounds:
 # ---------------------------------------------------------------- cases
 
 
-def case_terms(calc: Calculus, bounds: Bounds):
+def case_terms(calc: Calculus, bounds: Bounds, first: int = 1, last: int | None = None):
     """Every term of every (non-context) sort, by increasing size, each once:
     a term of several sorts is taken with the first of them, and a sort
-    included in an earlier one is skipped."""
+    included in an earlier one is skipped.  Sizes ``first`` to ``last``
+    (default: the size bound)."""
     g = grammar(calc)
     sorts = [s for s in g.sort_names if not g.is_empty(s)]
     sorts.sort(key=lambda s: -len(g.states_with(s)))
@@ -126,7 +136,7 @@ def case_terms(calc: Calculus, bounds: Bounds):
     for s in sorts:
         if not any(g.included(s, k) for k in kept):
             kept.append(s)
-    for n in range(1, bounds.size + 1):
+    for n in range(first, (bounds.size if last is None else last) + 1):
         for i, s in enumerate(kept):
             for t in enumerate_terms(calc, s, n, bounds.names, min_size=n):
                 if i and any(k in g.state(t) for k in kept[:i]):
@@ -248,6 +258,147 @@ def _binders(p: Pattern) -> set[str]:
     return set()
 
 
+#: Most cases enumerated beyond the size bound, looking for a failing case
+#: smaller than a critical pair's instance.
+EXTRA_CASES = 20000
+
+#: Most combinations of sort states checked per rule by :func:`_keeps_sorts`.
+STATE_COMBINATIONS = 4096
+
+
+def _keeps_sorts(calc: Calculus, rule: Rule) -> str | None:
+    """Why a step by ``rule`` may take a term out of the grammar, or None.
+
+    The theorems are about unsorted rewriting.  They carry over to the sorted
+    calculus (whose left-hand sides match only terms of their metavariables'
+    sorts) when the terms that have sorts are closed under steps: then, with
+    every metavariable over a sort of every term, the calculus is the unsorted
+    system restricted to a set of terms closed under reduction.  Checked on the
+    sort automaton: for every choice of states for the left-hand side's
+    metavariables, the right-hand side's state must do, in every context, at
+    least as well as the left-hand side's
+    (:meth:`calcscout.rules.core.sorts.Grammar.replacement_loss`).  "At least as well in
+    every context" is a preorder and a congruence, so the right-hand side's
+    state is computed from its metavariables' with the transitions, a
+    pending substitution ``M[x := N]`` counting as ``M`` when ``N`` does at
+    least as well as a name of ``x``'s names sort (each occurrence of the name
+    is a context in which it is replaced).  Sufficient, not necessary: a rule
+    that loses sorts only where its redex can never stand is refused as well.
+    """
+    g = grammar(calc)
+    scopes: dict[str, tuple[tuple[str, str], ...]] = {}  # meta -> (name, binder sort)
+    order: list[PMeta] = []
+
+    def collect(p: Pattern, env: tuple[tuple[str, str], ...]) -> None:
+        if isinstance(p, PMeta):
+            scopes[p.name] = env
+            order.append(p)
+        elif isinstance(p, PCon):
+            shape = calc.shapes.get(p.con)
+            for i, a in enumerate(p.args):
+                if isinstance(a, PAbs):
+                    bsorts = shape.binder_sorts[i] if shape is not None else ()
+                    sorts = bsorts if len(bsorts) == len(a.names) else \
+                        tuple(calc.metas.get(n, "") for n in a.names)
+                    collect(a.body, env + tuple(zip(a.names, sorts, strict=True)))
+                else:
+                    collect(a, env)
+        elif isinstance(p, PAbs):
+            collect(p.body, env)
+
+    collect(rule.lhs, ())
+    fresh = {(c.name.name, m) for c in rule.conditions if c.kind == "fresh"
+             for m in _metas_in(c.term)}
+    choices = [g.states_with(m.sort) for m in order]
+    total = 1
+    for c in choices:
+        total *= max(len(c), 1)
+    if total > STATE_COMBINATIONS:
+        return (f"keeping the sorts was not checked ({total} combinations of states "
+                f"of its metavariables, more than {STATE_COMBINATIONS})")
+    for combo in itertools.product(*choices):
+        assign = {m.name: q for m, q in zip(order, combo, strict=True)}
+        lost: list[str] = []
+        old = _state_of(calc, g, rule.lhs, assign, {}, scopes, fresh, lost)
+        new = _state_of(calc, g, rule.rhs, assign, {}, scopes, fresh, lost)
+        ctx = g.replacement_loss(old, new)
+        if ctx is None:
+            continue
+        where = "_"
+        for con, hole in ctx:
+            k = calc.shapes[con].arity
+            where = f"{con}({', '.join(where if j == hole else '_' for j in range(k))})"
+        metas = ", ".join(f"{m} in sorts {_sorts_text(q)}" for m, q in assign.items())
+        head = (f"its reduct may leave the grammar (a redex in sorts {_sorts_text(old)}"
+                + (f", with {metas}" if metas else ""))
+        if lost:
+            return f"{head}; in the reduct {lost[0]})"
+        return (f"{head}, becomes a term in sorts {_sorts_text(new)}"
+                + (f", which {where} does not accept" if ctx else "") + ")")
+    return None
+
+
+def _sorts_text(q: State) -> str:
+    return ", ".join(sorted(q)) if q else "none"
+
+
+def _metas_in(p: Pattern) -> set[str]:
+    if isinstance(p, PMeta):
+        return {p.name}
+    if isinstance(p, PAbs):
+        return _metas_in(p.body)
+    if isinstance(p, PCon):
+        return {m for a in p.args for m in _metas_in(a)}
+    if isinstance(p, PSubst):
+        return _metas_in(p.body) | {m for _, q in p.pairs for m in _metas_in(q)}
+    return set()
+
+
+def _state_of(calc: Calculus, g: Grammar, p: Pattern, assign: dict[str, State],
+              env: dict[str, State], scopes, fresh, lost: list[str]) -> State:
+    """The state of ``p``'s instances when each metavariable has its
+    ``assign``-ed state, up to doing at least as well in every context (for
+    the right-hand side; EMPTY when nothing is known); ``env`` gives the state
+    a name stands for (its binder's names sort, or a substituted term's)."""
+    if isinstance(p, PName):
+        got = env.get(p.name)
+        return got if got is not None else g.names_state.get(p.names_sort, EMPTY)
+    if isinstance(p, PMeta):
+        q = assign.get(p.name)
+        if q is None:
+            return EMPTY
+        for n, ns in scopes.get(p.name, ()):
+            if (n, p.name) in fresh:
+                continue  # not a free name of the instance
+            now = env.get(n)
+            need = g.names_state.get(ns, EMPTY)
+            if now is None or g.replacement_loss(need, now) is not None:
+                lost.append(f"{n} (in sorts {_sorts_text(need)}) is replaced in {p.name} "
+                            f"by a term in sorts {_sorts_text(now or EMPTY)} only")
+                return EMPTY  # nothing known
+        return q
+    if isinstance(p, PSubst):
+        inner = dict(env)
+        for x, q in p.pairs:
+            inner[x.name] = _state_of(calc, g, q, assign, env, scopes, fresh, lost)
+        return _state_of(calc, g, p.body, assign, inner, scopes, fresh, lost)
+    if isinstance(p, PCon):
+        shape = calc.shapes.get(p.con)
+        children = []
+        for i, a in enumerate(p.args):
+            if isinstance(a, PAbs):
+                inner = dict(env)
+                bsorts = shape.binder_sorts[i] if shape is not None else ()
+                for j, n in enumerate(a.names):
+                    ns = bsorts[j] if j < len(bsorts) else calc.metas.get(n, "")
+                    inner[n] = g.names_state.get(ns, EMPTY)
+                children.append(_state_of(calc, g, a.body, assign, inner, scopes, fresh, lost))
+            else:
+                children.append(_state_of(calc, g, a, assign, env, scopes, fresh, lost))
+        return g.delta(p.con, tuple(children))
+    return EMPTY
+
+
 def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | None, str | None]:
     """``(reason, None)`` when a published theorem proves ``calc`` (its
     ``group``) confluent, with its side conditions checked; otherwise
@@ -258,7 +409,8 @@ def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | 
     sort of every term (a restricted sort could be left by a reduct or a
     substitution, destroying a redex) and every name bound by the left-hand
     side; conditions only ``x fresh in T`` for such a name (which is the
-    pattern's own restriction, ``T``'s metavariables not seeing ``x``).  Then
+    pattern's own restriction, ``T``'s metavariables not seeing ``x``); every
+    rule's steps keeping terms in the grammar (:func:`_keeps_sorts`).  Then
     orthogonality (no critical pair) or parallel-closed critical pairs.  For
     systems with binders the parallel-closed case rests on van Oostrom's
     development-closed theorem for pattern rewriting (recalled from memory:
@@ -280,6 +432,10 @@ def confluence_theorem(calc: Calculus, group: str | None = None) -> tuple[str | 
     rules = calc.rules_of(group)
     for r in rules:
         why = _lhs_ok(calc, r, full)
+        if why is not None:
+            return None, f"rule {r.name}: {why}"
+    for r in rules:
+        why = _keeps_sorts(calc, r)
         if why is not None:
             return None, f"rule {r.name}: {why}"
     ov = critical.overlaps(calc, group)
@@ -333,43 +489,81 @@ def decide_confluent(spec: Spec, what, bounds: Bounds, prove: bool = True) -> Ve
     tried = 0
     undecided = 0
     cuts: Tally[str] = Tally()
-    for t in case_terms(calc, b):
-        tried += 1
-        with paused_gc():
-            g = reduction_graph(calc, t, b.steps, b.nodes, group)
-            fork = _fork(g)
-        if fork is not None:
-            a, c, evidence = fork
-            if _recheck_fork(calc, group, t, a, c, b):
-                ce = Counterexample(t.size, {"term": print_abstract(calc, t),
-                                             "left": print_abstract(calc, a),
-                                             "right": print_abstract(calc, c)},
-                                    f"{evidence}: {_path_text(calc, g, a)}; "
-                                    f"{_path_text(calc, g, c)}")
-                return verdict(REFUTED, tried=tried, undecided=undecided,
-                               cut_by=_most(cuts), counterexample=ce, notes=notes)
-            notes.append(f"a fork from {print_abstract(calc, t)} did not survive the re-check")
-        if not g.graph["complete"]:
-            undecided += 1
-            cuts[g.graph["cut_by"]] += 1
-    # The critical pairs on instances: a failure that needs a larger term.
+
+    def scan(terms, count_undecided: bool = True) -> Counterexample | None:
+        """The first case of ``terms`` that fails definitely (re-checked)."""
+        nonlocal tried, undecided
+        for t in terms:
+            tried += 1
+            with paused_gc():
+                g = reduction_graph(calc, t, b.steps, b.nodes, group)
+                fork = _fork(g)
+            if fork is not None:
+                a, c, evidence = fork
+                if _recheck_fork(calc, group, t, a, c, b):
+                    return Counterexample(t.size, {"term": print_abstract(calc, t),
+                                                   "left": print_abstract(calc, a),
+                                                   "right": print_abstract(calc, c)},
+                                          f"{evidence}: {_path_text(calc, g, a)}; "
+                                          f"{_path_text(calc, g, c)}")
+                notes.append(f"a fork from {print_abstract(calc, t)} did not survive the "
+                             "re-check")
+            if count_undecided and not g.graph["complete"]:
+                undecided += 1
+                cuts[g.graph["cut_by"]] += 1
+        return None
+
+    def refuted(ce: Counterexample) -> Verdict:
+        return verdict(REFUTED, tried=tried, undecided=undecided, cut_by=_most(cuts),
+                       counterexample=ce, notes=notes)
+
+    ce = scan(case_terms(calc, b))
+    if ce is not None:
+        return refuted(ce)
+    # The critical pairs on instances: a failure that needs a larger term, or
+    # one whose peak's graph a bound cut.  The instance only shows that the
+    # claim is refuted; the counterexample reported is still the smallest case
+    # in enumeration order, so when the instance is beyond the size bound the
+    # enumeration goes on up to its size.
     ov = critical.overlaps(calc, group)
     found = []
-    for p in ov.pairs:
+    for p in critical.unordered(ov.pairs):  # a mirror image joins as its original
         j = ov.joinability(p, b)
         if j.status == "not-joinable" and j.instance is not None:
             found.append((j.instance[0].size, p, j.instance))
     for _, p, (peak, left, right) in sorted(found, key=lambda x: x[0]):
-        if _recheck_peak(calc, group, peak, left, right, b):
-            ce = Counterexample(peak.size, {"term": print_abstract(calc, peak),
-                                            "left": print_abstract(calc, left),
-                                            "right": print_abstract(calc, right)},
-                                f"critical pair of {p.outer} and {p.inner} at {p.where}: "
-                                f"{p.show(p.peak)} -> {p.show(p.left)} and -> "
-                                f"{p.show(p.right)}; on this instance the two reducts "
-                                "have complete reduction graphs that share no term")
-            return verdict(REFUTED, tried=tried, undecided=undecided, cut_by=_most(cuts),
-                           counterexample=ce, notes=notes)
+        if not _recheck_peak(calc, group, peak, left, right, b):
+            continue
+        pair_text = (f"critical pair of {p.outer} and {p.inner} at {p.where}: "
+                     f"{p.show(p.peak)} -> {p.show(p.left)} and -> {p.show(p.right)}")
+        if peak.size > b.size:
+            before = tried
+            ce = scan(itertools.islice(case_terms(calc, b, b.size + 1, peak.size),
+                                       EXTRA_CASES), count_undecided=False)
+            searched = tried - before
+            if ce is not None:
+                notes.append(f"beyond the size bound {b.size}: the {pair_text} fails on "
+                             f"an instance of size {peak.size}, {print_abstract(calc, peak)}; "
+                             "the enumeration went on up to that size for the smallest "
+                             "failing case")
+                return refuted(ce)
+            if searched >= EXTRA_CASES:
+                notes.append(f"beyond the size bound {b.size}, only {EXTRA_CASES} more "
+                             "case(s) were searched for a failing case smaller than this "
+                             "critical pair's instance")
+            else:
+                notes.append(f"beyond the size bound {b.size}: no case up to size "
+                             f"{peak.size} fails definitely within the steps and nodes "
+                             "bounds; this critical pair's instance does")
+        else:
+            notes.append("this critical pair's instance is within the size bound, but "
+                         "the bounds cut its reduction graph in the enumeration")
+        ce = Counterexample(peak.size, {"term": print_abstract(calc, peak),
+                                        "left": print_abstract(calc, left),
+                                        "right": print_abstract(calc, right)},
+                            f"{pair_text}; on this instance the two reducts have complete "
+                            "reduction graphs that share no term")
+        return refuted(ce)
     if ov.uses_contexts:
         notes.append(f"critical pairs: contexts unfolded to depth {ov.context_depth}")
     if undecided:

@@ -18,7 +18,7 @@ from typing import Any
 from calcscout.rules.core.sorts import grammar
 from calcscout.rules.core.spec import Atom, Bounds, Calculus, EMeta, ESubst, Expr, Relation, Spec
 from calcscout.rules.core.terms import Name, Node, Term, name, open_body, substitute
-from calcscout.rules.notation.notation import print_abstract
+from calcscout.rules.notation.notation import print_abstract, print_abstract_at
 from calcscout.rules.rewriting.rewrite import join, position_text, reduction_graph, reducts
 from calcscout.rules.rewriting.translate import Translator, Undefined
 
@@ -255,12 +255,12 @@ class Evaluator:
             if left is right:
                 return Outcome(OK)
             calc = self.calc(atom.left.calculus)
-            pos, a, c = first_difference(calc, left, right)
+            pos, _, _ = first_difference(calc, left, right)
+            # each subterm with the bound names its whole term is printed with
+            a, c = print_abstract_at(calc, left, pos), print_abstract_at(calc, right, pos)
             return Outcome(FAIL, evidence=(
-                f"{lt} and {rt} differ at position {position_text(pos)}: "
-                f"{print_abstract(calc, a)} versus {print_abstract(calc, c)}"),
-                details={"position": position_text(pos), "left_subterm": print_abstract(calc, a),
-                         "right_subterm": print_abstract(calc, c)})
+                f"{lt} and {rt} differ at position {position_text(pos)}: {a} versus {c}"),
+                details={"position": position_text(pos), "left_subterm": a, "right_subterm": c})
         calc = self.calc(calc_name)
         if rel.kind in ("->", "->="):
             if rel.kind == "->=" and left is right:

@@ -33,15 +33,35 @@ class Problem:
         if line is None:
             line = source_line(self.pos.file, self.pos.line)
         if line is not None:
-            shown = line.rstrip("\n").replace("\t", " ")
-            out.append(f"  {shown}")
             width = 1
             if self.pos.end_column and self.pos.end_column > self.pos.column:
                 width = self.pos.end_column - self.pos.column
-            out.append("  " + " " * max(self.pos.column - 1, 0) + "^" * min(width, 60))
+            shown, column = _window(line.rstrip("\r\n").replace("\t", " "), self.pos.column)
+            out.append(f"  {shown}")
+            width = max(1, min(width, 60, len(shown) - column + 1))
+            out.append("  " + " " * max(column - 1, 0) + "^" * width)
         if self.hint:
             out.append(f"  hint: {self.hint}")
         return "\n".join(out)
+
+
+SHOWN_LINE = 100  # the most characters of a source line a message quotes
+
+
+def _window(line: str, column: int) -> tuple[str, int]:
+    """At most about :data:`SHOWN_LINE` characters of ``line`` around ``column``
+    (1-based), with an ellipsis where it is cut, and the column in what is shown.
+
+    >>> _window("a" * 300, 200)[0].startswith("...")
+    True
+    """
+    if len(line) <= SHOWN_LINE:
+        return line, column
+    start = max(0, min(column - 1 - SHOWN_LINE // 2, len(line) - SHOWN_LINE))
+    end = start + SHOWN_LINE
+    head = "..." if start > 0 else ""
+    tail = "..." if end < len(line) else ""
+    return head + line[start:end] + tail, column - start + len(head)
 
 
 _sources: dict[str, list[str]] = {}

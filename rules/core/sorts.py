@@ -212,6 +212,64 @@ class Grammar:
             return frozenset(sorts)
         return frozenset.intersection(*states)
 
+    # ------------------------------------------------------------ replacement
+
+    def frames(self) -> list[tuple[str, int, tuple[State, ...]]]:
+        """Every one-constructor context with its hole at argument ``i`` and
+        reachable states for the other arguments: ``(con, i, others)``."""
+        got = self.__dict__.get("_frames")
+        if got is None:
+            got = []
+            for con, shape in self.calc.shapes.items():
+                if con not in self.alts:
+                    continue
+                k = shape.arity
+                for i in range(k):
+                    for others in itertools.product(self.reachable, repeat=k - 1):
+                        got.append((con, i, others))
+            self.__dict__["_frames"] = got
+        return got
+
+    def replacement_loss(self, old: State, new: State) -> list[tuple[str, int]] | None:
+        """Whether a subterm of state ``old`` may be replaced by one of state
+        ``new`` in every context without leaving the grammar: None if so,
+        else a context (frames ``(con, hole)``, innermost first) in which the
+        term with ``old`` has sorts and the term with ``new`` has none.
+
+        The only thing a context observes is the state, so this is
+        reachability in the product of the automaton with itself, from
+        ``(old, new)`` to a pair ``(q, EMPTY)`` with ``q`` non-empty; pairs with
+        ``q <= q'`` are never searched further (transitions are monotone).
+        """
+        if not old:
+            return None
+        start = (old, new)
+        parent: dict[tuple[State, State], tuple] = {start: None}
+        todo = [start]
+        while todo:
+            nxt = []
+            for pair in todo:
+                q, q2 = pair
+                if q and not q2:
+                    path = []
+                    while parent[pair] is not None:
+                        pair, frame = parent[pair]
+                        path.append(frame)
+                    return path[::-1] or []
+                if q <= q2:
+                    continue
+                for con, i, others in self.frames():
+                    a = self.delta(con, others[:i] + (q,) + others[i:])
+                    if not a:
+                        continue
+                    b = self.delta(con, others[:i] + (q2,) + others[i:])
+                    succ = (a, b)
+                    if succ not in parent:
+                        parent[succ] = (pair, (con, i))
+                        nxt.append(succ)
+            todo = nxt
+        return None
+
 
 _grammars: dict[int, Grammar] = {}
 

@@ -42,12 +42,15 @@ class NamesSort:
     def canonical_name(self, i: int) -> str:
         """The i-th name of this sort: its metavariables, then with digits.
 
-        ``x, y, z, x1, y1, z1, x2, ...`` for ``names var x y z``.
+        ``x, y, z, x1, y1, z1, x2, ...`` for ``names var x y z``; the digits go
+        before a metavariable's primes (``x1'``), so that the name is an identifier.
         """
         k = len(self.metas)
         if i < k:
             return self.metas[i]
-        return f"{self.metas[i % k]}{i // k}"
+        meta = self.metas[i % k]
+        stem = meta.rstrip("'")
+        return f"{stem}{i // k}{meta[len(stem):]}"
 
 
 @dataclass(frozen=True)

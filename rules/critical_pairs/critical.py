@@ -37,7 +37,7 @@ from __future__ import annotations
 
 import dataclasses
 import itertools
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 
 from calcscout.rules.core.enumerate import enumerate_tuples
@@ -70,6 +70,7 @@ from calcscout.rules.core.terms import (
     name,
     node,
     open_body,
+    subterms,
 )
 from calcscout.rules.critical_pairs.unify import (
     MetaInfo,
@@ -82,12 +83,19 @@ from calcscout.rules.critical_pairs.unify import (
     unify,
 )
 from calcscout.rules.rewriting.match import _context_alts
-from calcscout.rules.rewriting.rewrite import join, reducts, root_reducts
+from calcscout.rules.rewriting.rewrite import _Ball, join, reducts, root_reducts
 
 #: Context frames unfolded in a left-hand side ``E[P]`` when looking for overlaps.
 CONTEXT_DEPTH = 2
 #: Most instances tried per critical pair.
 INSTANCE_LIMIT = 3000
+#: Most terms the searches on one pair's instances explore together (at
+#: least twice the ``nodes`` bound): beyond, the pair's instance search stops,
+#: and says so.  Only an instance whose two reduction graphs are complete can
+#: refute a pair, so when the bounds cut every instance's graph the search
+#: could only spend time (bench_confluence.py, part 4: an explicit-substitution
+#: calculus without garbage collection).
+INSTANCE_TERMS = 100_000
 #: Most terms one parallel step may reach (the parallel-closed check gives up beyond).
 PARALLEL_LIMIT = 5000
 
@@ -254,6 +262,7 @@ class Joinability:
     instance: tuple[Term, Term, Term] | None = None
     cut_by: str | None = None
     tried: int = 0
+    stopped: str | None = None
 
 
 class Overlaps:
@@ -268,6 +277,8 @@ class Overlaps:
         self.rules = calc.rules_of(group)
         self.uses_contexts = any(_contexts_in(r.lhs) for r in self.rules)
         self.table: dict[str, MetaInfo] = {}  # constructor ?X -> the metavariable
+        # closed terms whose reduction graphs the bounds (steps, nodes) cut by nodes
+        self._cut_terms: dict[tuple[int, int], set[Term]] = {}
         self.names_table: dict[str, MetaInfo] = {}  # internal name -> names metavariable
         raw = self._overlaps()
         self.full = self._extend(self.rules)
@@ -390,8 +401,10 @@ class Overlaps:
             free_shown[n] = info.name if info is not None else n
         used = set(free_shown.values())
 
-        def preferred(body: Term, index: int) -> str | None:
-            # The name a metavariable's rule gave this binder, if one sees it.
+        def preferred(body: Term, index: int, ns: str | None) -> str | None:
+            # The name a metavariable's rule gave this binder, if one sees it
+            # as a name of the binder's own names sort (printing a binder
+            # with a name of another sort would not re-read as the same term).
             stack = [(body, 0)]
             while stack:
                 t, d = stack.pop()
@@ -400,19 +413,20 @@ class Overlaps:
                 info = self.table.get(t.con)
                 if info is not None:
                     for p, a in enumerate(t.args):
-                        if isinstance(a, Bound) and a.index == index + d and info.scope_names[p]:
+                        if isinstance(a, Bound) and a.index == index + d and \
+                                info.scope_names[p] and (ns is None or info.scope[p] == ns):
                             return info.scope_names[p]
                 stack.extend((a, d + k) for a, k in zip(t.args, t.binders, strict=True))
             return None
 
         def choose(con: str, i: int, j: int, env: list[str], body: Term, k: int) -> str:
-            want = preferred(body, k - 1 - j)
-            if want is not None and want not in used and want not in env:
-                return want
             shape = self.full.shapes.get(con)
             ns = None
             if shape is not None and i < shape.arity and j < len(shape.binder_sorts[i]):
                 ns = self.calc.names_sorts.get(shape.binder_sorts[i][j])
+            want = preferred(body, k - 1 - j, shape.binder_sorts[i][j] if ns else None)
+            if want is not None and want not in used and want not in env:
+                return want
             k = 0
             while True:
                 cand = ns.canonical_name(k) if ns is not None and ns.metas else \
@@ -457,7 +471,12 @@ class Overlaps:
         has_names = any(n in self.names_table for t in (pair.left, pair.right) for n in t.free)
         return not (has_names and any(r.conditions for r in self.sound_rules))
 
-    def joinability(self, pair: CriticalPair, bounds: Bounds) -> Joinability:
+    def joinability(self, pair: CriticalPair, bounds: Bounds,
+                    progress: Callable[[int], None] | None = None) -> Joinability:
+        """How ``pair`` fares: joinable for every instance (a symbolic common
+        reduct), not joinable (an instance whose two sides have complete
+        reduction graphs that share no term), or unknown.  ``progress`` is
+        called with the number of instances tried so far."""
         steps, nodes = bounds.steps or 10, bounds.nodes or 20000
         cut = None
         if pair.left is pair.right:
@@ -468,22 +487,64 @@ class Overlaps:
                 return Joinability("joinable", "symbolic", common=j.common)
             cut = j.cut_by
         tried = 0
+        budget = max(INSTANCE_TERMS, 2 * nodes)
+        spent = 0
         for inst_peak in self.instances(pair, bounds):
             tried += 1
+            if progress is not None and tried % 16 == 0:
+                progress(tried)
             found = concrete_sides(self.calc, pair, inst_peak, self.group)
             for left, right in found:
-                j = join(self.calc, left, right, steps, nodes, self.group)
-                if j.status == "not-joinable":
+                status, why, explored = self._refutes(left, right, steps, nodes)
+                spent += explored
+                if status == "not-joinable":
                     return Joinability("not-joinable", "instances", instance=(inst_peak, left, right),
                                        tried=tried)
-                if j.status == "unknown":
-                    cut = cut or j.cut_by
+                if status == "unknown":
+                    cut = cut or why
+            if spent > budget:
+                return Joinability("unknown", "instances", cut_by=cut or "nodes", tried=tried,
+                                   stopped=f"the instance search stopped after {spent} explored "
+                                   f"terms (at most {budget} for one pair)")
         return Joinability("unknown", "instances", cut_by=cut, tried=tried)
+
+    def _refutes(self, left: Term, right: Term, steps: int, nodes: int
+                 ) -> tuple[str, str | None, int]:
+        """Whether two concrete sides certainly do not join: ``(status, cut_by,
+        terms explored)``.  Both reduction graphs grow a layer at a time; the
+        search stops at the first common term, and as soon as either graph is
+        cut, since only two complete graphs can show that the sides never
+        join.  A side with a closed subterm whose graph was cut by ``nodes``
+        is cut too (each reduct of the subterm gives a distinct reduct of the
+        side, no farther away), so such a side is not explored again; the
+        terms are remembered for all pairs of the calculus."""
+        if left is right:
+            return "joinable", None, 0
+        known = self._cut_terms.setdefault((steps, nodes), set())
+        for side in (left, right):
+            if any(s.loose == 0 and s in known for _, s in subterms(side)):
+                return "unknown", "nodes", 0
+        balls = (_Ball(self.calc, left, steps, nodes, self.group),
+                 _Ball(self.calc, right, steps, nodes, self.group))
+        explored = 2
+        while not all(b.done for b in balls):
+            for b, other in (balls, balls[::-1]):
+                added = b.grow()
+                explored += len(added)
+                if any(t in other.graph for t in added):
+                    return "joinable", None, explored
+                info = b.graph.graph
+                if not info["complete"]:
+                    if info["cut_by"] == "nodes":
+                        known.add(info["root"])
+                    return "unknown", info["cut_by"], explored
+        return "not-joinable", None, explored
 
     def instances(self, pair: CriticalPair, bounds: Bounds, limit: int = INSTANCE_LIMIT
                   ) -> Iterator[Term]:
         """Concrete peaks: the pair's metavariables replaced by enumerated
-        terms (total size at most ``bounds.size``), smallest first."""
+        terms (total size at most ``bounds.size``), smallest first, with at
+        most ``bounds.names`` free names, as every case of the enumeration."""
         cons = [c for c in _cons_in(pair.peak) if c in self.table]
         name_metas = [n for n in pair.peak.free if n in self.names_table]
         g = grammar(self.calc)
@@ -495,7 +556,7 @@ class Overlaps:
         name_choices = []
         for n in name_metas:
             ns = calc.names_sorts.get(self.names_table[n].sort)
-            k = max(budget, 1)
+            k = budget  # with `names 0` a free name is no instance at all
             name_choices.append([ns.canonical_name(i) if ns is not None else f"x{i}"
                                  for i in range(k)])
         count = 0
@@ -515,8 +576,8 @@ class Overlaps:
                     inst = _instantiate(pair.peak, dict(zip(cons, bodies, strict=True)),
                                         {n: name(v) for n, v in zip(name_metas, names,
                                                                     strict=True)})
-                    if inst in seen:
-                        continue
+                    if inst in seen or len(inst.free) > budget:
+                        continue  # seen, or more free names than the bound allows
                     seen.add(inst)
                     yield inst
                     count += 1
@@ -803,13 +864,38 @@ def critical_pairs(calc: Calculus, group: str | None = None) -> list[CriticalPai
     return overlaps(calc, group).pairs
 
 
-def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None) -> dict:
+def unordered(pairs: Sequence[CriticalPair]) -> list[CriticalPair]:
+    """Each overlap once: two rules overlapping at the root give the pair in
+    both orders, mirror images of each other (same peak up to renaming,
+    sides swapped); only the first is kept.  (The parallel-closed criterion
+    needs both orders, so :attr:`Overlaps.pairs` keeps them.)"""
+    def mirrored(p: CriticalPair) -> bool:
+        return not p.position and p.outer != p.inner
+
+    order: dict[frozenset[str], tuple[str, str]] = {}
+    for p in pairs:
+        if mirrored(p):
+            order.setdefault(frozenset(p.rules), p.rules)
+    # unification is symmetric: the pairs of the other order are the mirror images
+    out = [p for p in pairs if not mirrored(p) or order[frozenset(p.rules)] == p.rules]
+    return out
+
+
+def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None,
+                 progress: Callable[[str, int, int], None] | None = None) -> dict:
     """``calcscout pairs`` output (LANGUAGE.md §9), with the context depth
-    and the bounds used."""
+    and the bounds used.  ``progress(what, instances tried, most)`` is called
+    while a pair's instances are searched."""
     ov = overlaps(calc, group)
     out = []
-    for p in ov.pairs:
-        j = ov.joinability(p, bounds)
+    shown = unordered(ov.pairs)
+    total = len(shown)
+    for i, p in enumerate(shown, 1):
+        def step(tried: int, _what=f"pair {i}/{total} ({p.outer} / {p.inner})") -> None:
+            if progress is not None:
+                progress(_what, tried, INSTANCE_LIMIT)
+
+        j = ov.joinability(p, bounds, step)
         entry = {"rules": list(p.rules), "position": p.where, "peak": p.show(p.peak),
                  "left": p.show(p.left), "right": p.show(p.right), "status": j.status,
                  "how": j.how}
@@ -825,6 +911,8 @@ def pairs_report(calc: Calculus, bounds: Bounds, group: str | None = None) -> di
             entry["instances_tried"] = j.tried
         if j.cut_by:
             entry["cut_by"] = j.cut_by
+        if j.stopped:
+            entry["stopped"] = j.stopped
         out.append(entry)
     report = {"calculus": calc.name, "pairs": out, "bounds": bounds.as_dict()}
     if group is not None:

@@ -23,7 +23,11 @@ class Diagnostics:
         self.problems: list[Problem] = []
 
     def error(self, message: str, pos: Pos | None, hint: str | None = None) -> None:
-        self.problems.append(Problem(message, pos, hint))
+        problem = Problem(message, pos, hint)
+        # A base calculus's items are checked again for each calculus that
+        # extends it: the same message at the same place is reported once.
+        if problem not in self.problems:
+            self.problems.append(problem)
 
     def fail_if_problems(self) -> None:
         if self.problems:
@@ -37,11 +41,17 @@ class Diagnostics:
     def bounds(self, items: list[tuple[str, int, Pos]]) -> Bounds:
         """The bounds of a ``bounds`` or ``within`` line; a bad entry is a problem."""
         values: dict[str, int] = {}
+        first: dict[str, Pos] = {}
         for key, value, pos in items:
             if key not in BOUND_KEYS:
                 self.error(f"unknown bound {key!r}", pos,
                            hint="the bounds are size, steps, names and nodes")
                 continue
+            if key in first:
+                self.error(f"the bound {key} is given twice (first at {first[key]})", pos,
+                           hint="give each bound once")
+                continue
+            first[key] = pos
             least = 0 if key == "names" else 1
             if value < least:
                 self.error(f"the bound {key} must be at least {least}, not {value}", pos)

@@ -7,6 +7,10 @@ derives; a metavariable of sort ``T`` in a column of sort ``S`` is a wildcard
 when ``S ⊆ T``, is dropped when they are disjoint, and is otherwise expanded
 into one row per alternative of ``T`` with that head (an or-pattern), which
 keeps the check exact for refinement sorts.
+
+A non-linear pattern (``app(M, M)``: a metavariable or name written twice)
+matches only some of the terms of its shape, so, as Maranget does for guarded
+rows, it is left out of the matrix: only linear patterns count as covering.
 """
 
 from __future__ import annotations
@@ -34,9 +38,36 @@ class Witness:
 
 def missing_case(g: Grammar, sort: str, patterns: Sequence[Pattern]) -> Witness | None:
     """A term shape of ``sort`` that no pattern matches, or None when they cover the sort."""
-    rows = [[p] for p in patterns]
+    rows = [[p] for p in patterns if is_linear(p)]
     w = _useful(g, rows, [sort], 0)
     return w[0] if w is not None else None
+
+
+def is_linear(p: Pattern) -> bool:
+    """No metavariable and no free name occurs twice in ``p`` (binder names may
+    be reused in separate abstractions: ``pair(x.M, x.N)`` is linear)."""
+    seen: set[str] = set()
+    todo: list = [(p, frozenset())]
+    while todo:
+        q, bound = todo.pop()
+        if isinstance(q, PMeta):
+            key = "M:" + q.name
+        elif isinstance(q, PName):
+            if q.name in bound:
+                continue
+            key = "x:" + q.name
+        elif isinstance(q, PAbs):
+            todo.append((q.body, bound | frozenset(q.names)))
+            continue
+        elif isinstance(q, PCon):
+            todo.extend((a, bound) for a in q.args)
+            continue
+        else:
+            continue
+        if key in seen:
+            return False
+        seen.add(key)
+    return True
 
 
 def _heads(g: Grammar, sort: str) -> list[tuple[str, tuple[str, ...], tuple[tuple[str, ...], ...]]]:

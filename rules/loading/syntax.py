@@ -19,6 +19,11 @@ from calcscout.rules.core.spec import Pos
 from calcscout.rules.loading.files import read_bounded
 
 MAX_FILE_BYTES = 4 * 1024 * 1024
+# The deepest nesting of constructors, pluggings, substitutions and calls in one
+# rule, equation or claim.  Patterns are taken apart by recursive functions; rules
+# on paper nest a handful of levels.
+MAX_NESTING = 500
+_NESTING = frozenset({"p_app", "p_plug", "p_subst", "e_call"})
 
 
 # ---------------------------------------------------------------- raw items
@@ -194,6 +199,7 @@ class RawFile:
     translations: list[RawTranslation] = field(default_factory=list)
     bounds: list[tuple[str, int, Pos]] = field(default_factory=list)
     claims: list[RawClaim] = field(default_factory=list)
+    bounds_lines: list[Pos] = field(default_factory=list)  # where each `bounds` item starts
 
 
 # ---------------------------------------------------------------- reading
@@ -245,12 +251,34 @@ def read_text_file(path: str | Path, shown: str | None = None) -> str:
 
 
 def parse_text(text: str, file: str) -> RawFile:
+    # Lines end with \n, \r\n or a lone \r: one form, so that positions count lines
+    # the way an editor does.
+    text = text.replace("\r\n", "\n").replace("\r", "\n")
     remember_source(file, text)
     try:
         tree = _parser().parse(text)
     except UnexpectedInput as e:
         raise FileError([_syntax_problem(e, text, file)]) from None
+    _check_nesting(tree, file)
     return _Builder(file, text).file(tree)
+
+
+def _check_nesting(tree: Tree, file: str) -> None:
+    """A FileError at the first pattern or expression nested deeper than
+    :data:`MAX_NESTING` (walked without recursion, so any depth is safe here)."""
+    todo: list[tuple[Tree, int]] = [(tree, 0)]
+    while todo:
+        t, depth = todo.pop()
+        if t.data in _NESTING:
+            depth += 1
+            if depth > MAX_NESTING:
+                meta = t.meta
+                raise FileError(
+                    f"this is nested more than {MAX_NESTING} levels deep",
+                    Pos(file, meta.line, meta.column, meta.column + 1),
+                    hint=f"a rule, equation or claim may nest at most {MAX_NESTING} "
+                         "constructors, pluggings, substitutions and calls")
+        todo.extend((c, depth) for c in t.children if isinstance(c, Tree))
 
 
 # ---------------------------------------------------------------- syntax errors
@@ -360,6 +388,7 @@ class _Builder:
             elif kind == "translation":
                 out.translations.append(self.translation(item))
             elif kind == "bounds_item":
+                out.bounds_lines.append(self.pos(item.children[0]))
                 out.bounds.extend(self.bound(b) for b in item.children[1:] if isinstance(b, Tree))
             elif kind == "claim":
                 out.claims.append(self.claim(item))

@@ -32,7 +32,11 @@ Choices where the language is silent:
   of an operator (``x (\\y. y)``, ``x + (\\y. y)``), which the language allows,
   but not as the body of another open-ended one (``\\x. \\y. x``).
 - Bound names skip the calculus's literals and constructor names, which the
-  parser would not read back as names.
+  parser would not read back as names; a free name so spelled is printed with a
+  backquote (`` `y ``), which the parser reads as a name.
+- A name's terminal is that of its names sort (read off its spelling), so that
+  binder notations of one shape over different names sorts (``"\\x. M"``,
+  ``"\\k. M"``) are told apart.
 
 The parser is an Earley parser generated with lark from the calculus, one per
 calculus (cached); its grammar has, for every level, a nonterminal for terms
@@ -95,6 +99,15 @@ TOP = -1  # the level of a whole term
 JUXTAPOSITION = 101  # above every declared precedence (0-100): binds tightest
 ATOM = 1000  # names, abstract forms, parenthesised terms, closed notations
 DEFAULT_PREC = 50
+# The most tokens one notation may have.  The term parser's generator grows
+# with the cube of a notation's length (128 tokens: 0.2 s, 500: 13 s); notations
+# on paper have a handful.
+MAX_NOTATION_TOKENS = 64
+# The largest object term the parser takes (tokens, and parentheses open at once).
+# The Earley parser's time grows faster than linearly with nesting (50,000
+# parentheses took 37 s and 825 MB); a printed counterexample has a few dozen.
+MAX_TERM_TOKENS = 2000
+MAX_TERM_DEPTH = 500
 
 
 @dataclass(frozen=True)
@@ -201,6 +214,99 @@ def _form_of(alt: AltCon, notation: Notation) -> _Form | None:
                  notation.assoc or "left", False)
 
 
+_CLOSING = {")": "(", "]": "[", "}": "{"}
+
+
+def unbalanced_bracket(literals: Sequence[str]) -> str | None:
+    """What is wrong with the brackets among a notation's literals, or None.
+
+    >>> unbalanced_bracket(["(", ","]) is None
+    False
+    """
+    stack: list[str] = []
+    for lit in literals:
+        if lit in ("(", "[", "{"):
+            stack.append(lit)
+        elif lit in _CLOSING:
+            if not stack or stack[-1] != _CLOSING[lit]:
+                return f"{lit!r} closes nothing"
+            stack.pop()
+    if stack:
+        return f"{stack[-1]!r} is not closed"
+    return None
+
+
+def _pattern_key(calc: Calculus, alt: AltCon, form: _Form) -> tuple:
+    """What the term parser sees of a notation: its literals, where operands stand,
+    and the names sort of each bound name (a binder's spelling says its names sort)."""
+    key = []
+    for it in form.items:
+        if it.kind == "lit":
+            key.append(("lit", it.text))
+        elif it.kind == "binder":
+            arg, j = it.binds[0]
+            key.append(("binder", alt.args[arg].binder_sorts[j]))
+        else:
+            key.append(("arg", ""))
+    return tuple(key)
+
+
+def notation_problems(calc: Calculus, base: Calculus | None = None
+                      ) -> list[tuple[str, Pos, str | None]]:
+    """Notations of ``calc`` that the term parser could not read back: two
+    constructors with notations of the same pattern (``"M + N"`` twice, or
+    ``"\\x. M"`` and ``"\\y. M"`` over one names sort), or a literal that spells a
+    name (a names metavariable, with digits or primes).  Pairs already in
+    ``base`` (the calculus extended, checked when it was loaded) are skipped."""
+    from calcscout.rules.core.spec import base_meta
+
+    inherited = {id(a) for s in (base.sorts.values() if base else ()) for a in s.alts}
+    out: list[tuple[str, Pos, str | None]] = []
+    seen: dict[tuple, tuple[AltCon, tuple[int, ...]]] = {}
+    for sort in calc.sorts.values():
+        if sort.is_context:
+            continue
+        for alt in sort.alts:
+            if not isinstance(alt, AltCon) or alt.notation is None:
+                continue
+            new = id(alt) not in inherited
+            form = _form_of(alt, alt.notation)
+            if form is None:
+                continue
+            for it in form.items:
+                owner = calc.metas.get(base_meta(it.text))
+                # an inherited notation whose literal spelt a name already was reported
+                known = not new and base is not None and \
+                    base.metas.get(base_meta(it.text)) in base.names_sorts
+                if it.kind == "lit" and owner in calc.names_sorts and not known and \
+                        re.fullmatch(r"[A-Za-z_][A-Za-z0-9_]*'*", it.text):
+                    out.append((f"the literal {it.text} of the notation "
+                                f'"{alt.notation.text}" spells a name of {owner}',
+                                alt.notation.pos,
+                                "a name written so would be read as the literal; "
+                                "choose another literal"))
+                    break
+            key = _pattern_key(calc, alt, form)
+            order = tuple(it.arg for it in form.items if it.kind == "arg")
+            first = seen.get(key)
+            if first is None:
+                seen[key] = (alt, order)
+                continue
+            other, other_order = first
+            if other.con == alt.con and other_order == order:
+                continue
+            if not new and id(other) in inherited:
+                continue
+            assert other.notation is not None
+            out.append((f'the notation "{alt.notation.text}" of {alt.con} reads like the '
+                        f'notation "{other.notation.text}" of {other.con} (at '
+                        f"{other.notation.pos}): a term written with it could be either",
+                        alt.notation.pos,
+                        "give one of them another literal token; binders that bind names "
+                        "of different names sorts are told apart by the name's spelling"))
+    return out
+
+
 class _Reading:
     """Everything the printer and the parser need to know of one calculus."""
 
@@ -235,10 +341,30 @@ class _Reading:
             a.kind == "arg" and b.kind == "arg"
             for f in self.forms for a, b in zip(f.items, f.items[1:], strict=False)
         )
+        # One terminal for the names of each names sort: a binder in a notation takes
+        # only names of its own sort, so "\\x. M" and "\\k. M" are told apart by the
+        # spelling of the bound name.
+        self.name_terminals: dict[str | None, str] = {
+            ns: f"NAME_{i}" for i, ns in enumerate(calc.names_sorts)} or {None: "NAME_0"}
         # The punctuation of the abstract form is always a token.
         self.symbols = tuple(sorted(
             {t for t in self.literals if _is_symbol_run(t)} | {"."}, key=len, reverse=True
         ))
+
+    def name_terminal(self, word: str) -> str:
+        """The terminal of a name: that of the names sort its spelling belongs to."""
+        got = self.name_terminals.get(self.calc.names_sort_of(word))
+        return got if got is not None else next(iter(self.name_terminals.values()))
+
+    def binder_terminal(self, con: str, item: _Item) -> str:
+        arg, j = item.binds[0]
+        got = self.name_terminals.get(self.binder_sort(con, arg, j))
+        return got if got is not None else next(iter(self.name_terminals.values()))
+
+    def escaped(self, word: str) -> bool:
+        """Must the free name ``word`` be written with a backquote to read back
+        as a name (it spells a constructor or a literal of a notation)?"""
+        return word in self.cons or word in self.literals
 
     def arity(self, con: str) -> tuple[int, ...] | None:
         shape = self.calc.shapes.get(con)
@@ -327,24 +453,67 @@ def print_abstract(calc: Calculus, term: Term) -> str:
     >>> print_abstract(calc, node("lam", [node("app", [bound(0), name("y")])], [1]))
     'lam(x.app(x, y))'
     """
-    namer = _Namer(_reading(calc), term)
+    reading = _reading(calc)
+    return _abstract(reading, _Namer(reading, term), term, [])
 
-    def go(t: Term, env: list[str]) -> str:
-        if isinstance(t, Name):
-            return t.name
-        if isinstance(t, Bound):
-            return env[-1 - t.index]
-        assert isinstance(t, Node)
-        if not t.args:
-            return t.con
-        parts = []
-        for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
-            names = _bind(namer, t.con, i, k, env)
-            body = go(a, env + names)
-            parts.append("".join(f"{n}." for n in names) + body)
-        return f"{t.con}({', '.join(parts)})"
 
-    return go(term, [])
+def print_abstract_at(calc: Calculus, whole: Term, path: Sequence[int]) -> str:
+    """The subterm of ``whole`` at ``path`` (argument indices from the root), in
+    abstract form, its bound names those that printing ``whole`` gives them: so
+    evidence about a subterm speaks the names of the term it was shown with."""
+    reading = _reading(calc)
+    namer = _Namer(reading, whole)
+    env: list[str] = []
+    t = whole
+    for i in path:
+        assert isinstance(t, Node) and i < len(t.args), (path, t)
+        env = env + _bind(namer, t.con, i, t.binders[i], env)
+        t = t.args[i]
+    return _abstract(reading, namer, t, env)
+
+
+def _abstract(reading: _Reading, namer: _Namer, term: Term, env: list[str]) -> str:
+    """``term`` in abstract form under binders named ``env`` (innermost last).
+
+    Iterative, so that a deeply nested term prints without exhausting Python's stack."""
+    out: list[str] = []
+    todo: list = [(term, env)]
+    while todo:
+        t, names = todo.pop()
+        if isinstance(t, str):
+            out.append(t)
+        elif isinstance(t, Name):
+            out.append(_free_name(reading, t.name))
+        elif isinstance(t, Bound):
+            out.append(names[-1 - t.index])
+        else:
+            assert isinstance(t, Node)
+            if not t.args:
+                out.append(_nullary(reading, t.con))
+                continue
+            pieces: list = [f"{t.con}("]
+            for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
+                bound_names = _bind(namer, t.con, i, k, names)
+                if i:
+                    pieces.append(", ")
+                pieces.append("".join(f"{n}." for n in bound_names))
+                pieces.append((a, names + bound_names))
+            pieces.append(")")
+            for p in reversed(pieces):
+                todo.append((p, names) if isinstance(p, str) else p)
+    return "".join(out)
+
+
+def _free_name(reading: _Reading, text: str) -> str:
+    """A free name as it reads back: with a backquote where it spells a constructor
+    or a literal of the calculus (which the parser would read as such)."""
+    return f"`{text}" if reading.escaped(text) else text
+
+
+def _nullary(reading: _Reading, con: str) -> str:
+    """A nullary constructor as it reads back: ``c()`` where ``c`` alone would be
+    read as a literal of another constructor's notation."""
+    return f"{con}()" if con in reading.literals else con
 
 
 def _bind(namer: _Namer, con: str, arg: int, k: int, env: list[str]) -> list[str]:
@@ -372,7 +541,7 @@ def print_term(calc: Calculus, term: Term) -> str:
 
     def go(t: Term, env: list[str]) -> _Printed:
         if isinstance(t, Name):
-            return _Printed(t.name, ATOM, False, False)
+            return _Printed(_free_name(reading, t.name), ATOM, False, False)
         if isinstance(t, Bound):
             return _Printed(env[-1 - t.index], ATOM, False, False)
         assert isinstance(t, Node)
@@ -381,7 +550,7 @@ def print_term(calc: Calculus, term: Term) -> str:
                 t.binders == form_arity(form):
             return with_form(t, form, env)
         if not t.args:
-            return _Printed(t.con, ATOM, False, False)
+            return _Printed(_nullary(reading, t.con), ATOM, False, False)
         parts = []
         for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
             names = _bind(namer, t.con, i, k, env)
@@ -464,7 +633,7 @@ def _may_glue(left: str, right: str) -> bool:
 
 _IDENT = re.compile(r"[A-Za-z_][A-Za-z0-9_]*'*")
 _NUMBER = re.compile(r"[0-9]+")
-_SYMBOLS = re.compile(r"[^\sA-Za-z0-9_()\[\]{},]+")
+_SYMBOLS = re.compile(r"[^\sA-Za-z0-9_()\[\]{},`]+")  # a backquote starts a name
 _PUNCT = {"(": "LPAR", ")": "RPAR", ",": "COMMA", ".": "DOT"}
 
 
@@ -481,7 +650,20 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
     pos = 0
     n = len(text)
 
+    depth = 0
+
     def token(kind: str, value: str, start: int) -> Token:
+        nonlocal depth
+        if len(tokens) >= MAX_TERM_TOKENS:
+            raise _error(text, file, start, f"the term has more than {MAX_TERM_TOKENS} "
+                         "tokens, more than the term parser takes", len(value))
+        if value in "([{":
+            depth += 1
+            if depth > MAX_TERM_DEPTH:
+                raise _error(text, file, start, f"the term nests more than {MAX_TERM_DEPTH} "
+                             "parentheses", 1)
+        elif value in ")]}":
+            depth -= 1
         line, col = _line_col(text, start)
         return Token(kind, value, start_pos=start, line=line, column=col,
                      end_line=line, end_column=col + len(value), end_pos=start + len(value))
@@ -490,6 +672,14 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
         c = text[pos]
         if c.isspace():
             pos += 1
+            continue
+        if c == "`":
+            # `y: the name y, even where y spells a constructor or a literal
+            m = _IDENT.match(text, pos + 1)
+            if m is None:
+                raise _error(text, file, pos, "a backquote must be followed by a name")
+            tokens.append(token(reading.name_terminal(m.group()), m.group(), pos))
+            pos = m.end()
             continue
         m = _IDENT.match(text, pos)
         if m:
@@ -512,7 +702,7 @@ def _lex(reading: _Reading, terminals: dict[str, str], text: str, file: str) -> 
                 raise _error(text, file, pos, f"unknown constructor {word}",
                              len(word), hint=_known_cons_hint(reading))
             else:
-                tokens.append(token("NAME", word, pos))
+                tokens.append(token(reading.name_terminal(word), word, pos))
             pos = after
             continue
         m = _NUMBER.match(text, pos)
@@ -592,10 +782,11 @@ class _TermParser:
         self.reading = reading
         self.terminals = _terminal_names(reading)
         self.display = {v: k for k, v in self.terminals.items()}
+        self.names = frozenset(reading.name_terminals.values())
         self.grammar = self._grammar()
         self.lark = Lark(self.grammar, parser="earley", lexer=_TokenList,
                          keep_all_tokens=True, start="start", ambiguity="resolve")
-        self.starters = {"NAME", "CON", "CALLCON", "LPAR"} | {
+        self.starters = {*self.names, "CON", "CALLCON", "LPAR"} | {
             self.terminals[f.items[0].text] for f in reading.forms if f.items[0].kind == "lit"
         }
 
@@ -611,6 +802,13 @@ class _TermParser:
             return f"{family}_atom"
 
         top = nt("o", TOP)
+        any_name = "(" + " | ".join(sorted(self.names)) + ")"
+        # A binder takes only names of its own names sort where another notation has
+        # the same literals and places (``"\\x. M"``, ``"\\k. M"``); elsewhere any name,
+        # as the abstract form does.
+        erased = [tuple(it.text if it.kind == "lit" else it.kind for it in f.items)
+                  for f in forms]
+        shared = [erased.count(e) > 1 for e in erased]
 
         def expansion(k: int, form: _Form, family: str) -> str:
             symbols = []
@@ -618,7 +816,10 @@ class _TermParser:
                 if it.kind == "lit":
                     symbols.append(self.terminals[it.text])
                 elif it.kind == "binder":
-                    symbols.append("NAME")
+                    if shared[k]:
+                        symbols.append(self.reading.binder_terminal(form.con, it))
+                    else:
+                        symbols.append(any_name)
                 else:
                     slot = form.slot(j)
                     if slot.enclosed:
@@ -635,7 +836,8 @@ class _TermParser:
             rules[f"c_{n}"] = [f"c_{nxt}"]
             rules[f"o_{n}"] = [f"o_{nxt}"]
         rules["c_atom"] = [
-            "NAME -> name", "CON -> bare", "CALLCON LPAR args? RPAR -> call",
+            *(f"{t} -> name" for t in sorted(self.names)),
+            "CON -> bare", "CALLCON LPAR args? RPAR -> call",
             f"LPAR {top} RPAR -> paren",
         ]
         rules["o_atom"] = ["c_atom"]
@@ -649,10 +851,10 @@ class _TermParser:
                 rules[f"c_{at}"].append(expansion(k, form, "c"))
                 # a postfix term is closed, and open-allowed terms include closed ones
                 rules[f"o_{at}"].append(expansion(k, form, "o"))
-        lines = [f"start: {top}", "args: arg (COMMA arg)*", f"arg: (NAME DOT)* {top}"]
+        lines = [f"start: {top}", "args: arg (COMMA arg)*", f"arg: ({any_name} DOT)* {top}"]
         for lhs, alts in rules.items():
             lines.append(f"?{lhs}: " + "\n    | ".join(dict.fromkeys(alts)))
-        declared = sorted({"NAME", "CON", "CALLCON", *self.terminals.values()})
+        declared = sorted({*self.names, "CON", "CALLCON", *self.terminals.values()})
         lines.append("%declare " + " ".join(declared))
         return "\n".join(lines) + "\n"
 
@@ -661,12 +863,12 @@ class _TermParser:
     def describe(self, expected: set[str]) -> str:
         parts: list[str] = []
         rest = set(expected)
-        if "NAME" in rest and rest & (self.starters - {"NAME"}):
+        if rest & self.names and rest & (self.starters - self.names):
             parts.append("a term")
             rest -= self.starters
-        elif "NAME" in rest:
+        elif rest & self.names:
             parts.append("a name")
-            rest.discard("NAME")
+            rest -= self.names
         shown = sorted(repr(self.display[t]) for t in rest if t in self.display)
         parts.extend(shown)
         if "$END" in rest:
@@ -686,6 +888,16 @@ class _TermParser:
             if tok.type == "$END":
                 raise self._eof(text, file, set(e.expected)) from None
             expected = set(e.expected)
+            if tok.type in self.names and expected & self.names:
+                # a binder of a notation that takes names of another names sort
+                by_terminal = {t: ns for ns, t in self.reading.name_terminals.items()}
+                wanted = sorted(str(by_terminal[t]) for t in expected & self.names)
+                raise _error(text, file, tok.start_pos,
+                             f"the name {tok.value} belongs to the names sort "
+                             f"{by_terminal[tok.type]}; a name of {' or '.join(wanted)} is "
+                             "expected here", len(tok.value),
+                             hint="a name belongs to the names sort whose metavariable its "
+                                  "spelling extends") from None
             if self._complete(tokens[: tokens.index(tok)]):
                 expected.add("$END")  # lark's Earley does not list it
             raise _error(text, file, tok.start_pos,
@@ -741,7 +953,7 @@ class _TermParser:
         return node(form.con, closed, binders)
 
     def _token(self, tok: Token, text: str, file: str) -> Term:
-        if tok.type == "NAME":
+        if tok.type in self.names:
             return name(tok.value)
         con = tok.value
         if self.reading.arity(con):
@@ -767,7 +979,7 @@ class _TermParser:
         args = []
         for i, (arg, k) in enumerate(zip(given, expected, strict=True)):
             parts = arg.children
-            binder_names = [p.value for p in parts[:-1] if p.type == "NAME"]
+            binder_names = [p.value for p in parts[:-1] if p.type in self.names]
             if len(binder_names) != k:
                 first = parts[0]
                 while isinstance(first, Tree):

@@ -219,6 +219,9 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         if bad:
             head_v.reason = f"part {bad[0].name} is {bad[0].verdict}"
             head_v.cut_by = bad[0].cut_by
+        engines = {v.engine for v in parts_v}
+        if len(engines) == 1:
+            head_v.engine = engines.pop()
         if parts_v and all(v.scope == "all" for v in parts_v):
             head_v.scope = "all"
             head_v.reason = "every part is proved for all terms"

@@ -415,7 +415,7 @@ class Prover:
             left = self.value(atom.left, case.env, trail)
             left_eq = list(trail)
             left = self.normal(left, left_calc, rws, trail)
-            steps = [ProofStep(self.show(left, left_calc), _why_text(trail or ["evaluation"]))]
+            steps = [ProofStep(self.show(left, left_calc), _why_text(trail))]
             if atom.relation is None:
                 assert atom.member_of is not None
                 calc = self.calc(atom.member_of[0])
@@ -433,7 +433,7 @@ class Prover:
             right = self.value(atom.right, case.env, rtrail)
             right = self.normal(right, left_calc, rws, rtrail)
             steps.append(ProofStep(self.show(right, left_calc),
-                                   "right side: " + _why_text(rtrail or ["evaluation"])))
+                                   "right side: " + _why_text(rtrail)))
         except Stuck as e:
             return False, [], None, STUCK, str(e)
         del left_eq
@@ -985,7 +985,7 @@ def _renamed(exact: tuple[Term, Term], t: Term) -> Term | None:
 
 def _why_text(trail: list[str]) -> str:
     if not trail:
-        return "evaluation"
+        return "as written"
     eqs = [t for t in trail if not t.startswith(("lemma", "hypothesis"))]
     facts = [t for t in trail if t.startswith(("lemma", "hypothesis"))]
     parts = []

@@ -219,6 +219,6 @@ def _run_rewriting(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions) -> V
     except ImportError:  # the rewriting decisions are a module of their own
         return Verdict(ob.name, ob.claim.file, ob.text, INCONCLUSIVE, b,
                        reason="confluent and terminating are not decided in this build")
-    decide = (confluence.decide_confluent if isinstance(ob.formula, Confluent)
-              else confluence.decide_terminating)
-    return decide(spec, ob, b)
+    if isinstance(ob.formula, Confluent):
+        return confluence.decide_confluent(spec, ob, b)
+    return confluence.decide_terminating(spec, ob, b, timeout=opts.timeout)

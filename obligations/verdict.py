@@ -64,6 +64,7 @@ class Verdict:
     notes: list[str] = field(default_factory=list)
     part_of: str | None = None
     undecided_example: Counterexample | None = None  # the smallest undecided case
+    witness: dict[str, Any] | None = None  # a proof's certificate (a termination order)
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -90,6 +91,8 @@ class Verdict:
             out["notes"] = list(self.notes)
         if self.part_of is not None:
             out["part_of"] = self.part_of
+        if self.witness is not None:
+            out["witness"] = self.witness
         return out
 
     @classmethod
@@ -109,6 +112,7 @@ class Verdict:
             notes=list(data.get("notes", [])), part_of=data.get("part_of"),
             undecided_example=(Counterexample.from_json(data["undecided_example"])
                                if data.get("undecided_example") else None),
+            witness=data.get("witness"),
         )
 
 

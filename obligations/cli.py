@@ -396,6 +396,13 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
     if claim is None:
         raise UsageError(f"no claim {claim_name} in {spec.file}",
                          hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
+    from rules.spec import Terminating
+
+    if isinstance(claim.formula, Terminating):  # the order-finding query (sat: terminating)
+        from .termination import export_claim
+
+        click.echo(str(export_claim(spec, claim, out_dir)))
+        return
     b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
     for path in export_obligations(spec, claim, b, out_dir):
         click.echo(str(path))

@@ -75,8 +75,11 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
         start = time.perf_counter()
         if ob.normalizes is not None:
             tr = spec.translations[ob.normalizes]
+            from .termination import normalize_proof
+
             obs.append({**base, "kind": "normalize", "translation": tr.name,
-                        "group": tr.normalize})
+                        "group": tr.normalize, "proof": normalize_proof(
+                            spec.calculi[tr.target], tr.normalize, opts.timeout)})
         elif bounded.is_relational(ob) and _engine(spec, ob, opts) == "smt":
             from .smt_engine import run_smt
 
@@ -132,7 +135,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
                 mine = [x for x in relational if x.name == name]
                 cutoffs[name] = bounded.first_failure(mine, any(x.collect_all for x in mine))
             v = bounded.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
-                                          o["group"], b, relational, cutoffs)
+                                          o["group"], b, relational, cutoffs,
+                                          proof=o.get("proof"))
         else:
             v = Verdict.from_json(o["verdict"])
         if o["head"]:

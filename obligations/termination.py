@@ -34,19 +34,24 @@ rules with a context ``E[P]`` on the left; those keep the bounded verdict.
 
 from __future__ import annotations
 
+import os
+import re
 import time
 from collections import Counter
 from collections.abc import Callable
 from dataclasses import dataclass, field
-from functools import cache
+from functools import cache, lru_cache
+from pathlib import Path
 from typing import Any
 
 import networkx as nx
 
-from rules.firstorder import NAME, App, FRule, FSystem, FTerm, Var, subterms, symbols, view
+from rules.errors import EncodingError
+from rules.firstorder import NAME, App, FSystem, FTerm, Var, subterms, symbols, view
 from rules.spec import Calculus
 
 from .bounded import InternalError
+from .verdict import HOLDS, REFUTED, Verdict
 
 #: Seconds per solver query when the command line gives no --timeout.
 DEFAULT_QUERY_TIMEOUT = 3.0
@@ -90,7 +95,7 @@ def prove(calc: Calculus, group: str | None = None, timeout: float | None = None
     ``methods`` limits the methods tried (``lpo``, ``rpo``, ``kbo``, ``poly1``,
     ``poly2``, ``dp``), for benchmarks and tests.
     """
-    from encoders.orders import DIRECT_METHODS, Problem, find
+    from encoders.orders import DIRECT_METHODS, LAST_METHODS, Problem, find
 
     system, why = view(calc, group)
     if system is None:
@@ -126,7 +131,21 @@ def prove(calc: Calculus, group: str | None = None, timeout: float | None = None
             proof.witness = w
             proof.reason = describe(w, system)
             return proof
-    tried = [m for m in (*DIRECT_METHODS, "dp") if methods is None or m in methods]
+    for method in LAST_METHODS:
+        if methods is not None and method not in methods:
+            continue
+        found = find(Problem(system.signature, strict=strict), method, per_query)
+        proof.seconds[method] = found.seconds
+        if found.status == "unknown":
+            proof.notes.append(f"termination proof: the solver gave up on {method} "
+                               f"({found.reason})")
+        if found.witness is not None:
+            w = _with_rules(found.witness, system)
+            _must_check(system, w)
+            proof.witness = w
+            proof.reason = describe(w, system)
+            return proof
+    tried = [m for m in (*DIRECT_METHODS, "dp", *LAST_METHODS) if methods is None or m in methods]
     proof.reason = f"no termination proof found ({', '.join(tried)})"
     return proof
 
@@ -656,8 +675,9 @@ def describe(w: dict[str, Any], system: FSystem) -> str:
 # ---------------------------------------------------------------- normalize(F)
 
 
+@lru_cache(maxsize=64)  # a calculus is equal only to itself: one entry per loaded group
 def normalize_proof(calc: Calculus, group: str | None, timeout: float | None = None
-                    ) -> dict[str, Any] | None:
+                    ) -> dict[str, Any]:
     """For a ``then normalize GROUP`` translation: when the group is proved terminating and
     a theorem proves it confluent, every term has exactly one normal form — the part
     ``normalize(F)`` holds for all terms.  ``{"reason": ..., "witness": ...}``, or
@@ -675,19 +695,37 @@ def normalize_proof(calc: Calculus, group: str | None, timeout: float | None = N
                       "exactly one normal form", "witness": p.witness}
 
 
+def with_normalize_proof(v: Verdict, proof: dict[str, Any]) -> Verdict:
+    """The ``normalize(F)`` part ``v`` of the bounded run, under :func:`normalize_proof`:
+    proved for all terms when the proof exists (a bounded refutation would contradict it:
+    an internal error); otherwise ``v`` with a note saying why there is no proof."""
+    if "reason" not in proof:
+        v.notes.append(f"normalize not proved for all terms: {proof.get('why_not')}")
+        return v
+    if v.verdict == REFUTED:
+        raise InternalError(f"{v.name}: several normal forms found, but {proof['reason']}")
+    if v.undecided:
+        v.notes.append(f"{v.undecided} case(s) needed more than the bound on {v.cut_by} to "
+                       "reach their normal form (it exists: see the proof)")
+    v.verdict, v.scope, v.reason, v.witness = HOLDS, "all", proof["reason"], proof["witness"]
+    v.undecided, v.cut_by = 0, None
+    return v
+
+
 def export_terminating(calc: Calculus, group: str | None, header: str) -> str:
     """The order-finding query of ``terminating C`` as one SMT-LIB 2.6 script: ``sat`` when
     one of the orders exists — a path order, the Knuth-Bendix order, a polynomial
     interpretation, or dependency pairs whose every cyclic component of the estimated graph
     has a reduction pair with all its pairs strictly decreasing (the one-shot form).
     Raises ValueError when the rules are outside the first-order view."""
-    from encoders.orders import DIRECT_METHODS, Problem, smt2
+    from encoders.orders import DIRECT_METHODS, LAST_METHODS, Problem, smt2
 
     system, why = view(calc, group)
     if system is None:
         raise ValueError(why)
     strict = [(r.lhs, r.rhs) for r in system.rules]
-    alts = [(m, [(m, Problem(system.signature, strict=strict))]) for m in DIRECT_METHODS]
+    alts = [(m, [(m, Problem(system.signature, strict=strict))])
+            for m in (*DIRECT_METHODS, *LAST_METHODS)]
     pairs = dependency_pairs(system)
     g = dependency_graph(system, pairs)
     sig = _pair_signature(system)
@@ -699,5 +737,33 @@ def export_terminating(calc: Calculus, group: str | None, header: str) -> str:
     return smt2(alts, header)
 
 
-def _rules_text(rules: tuple[FRule, ...]) -> list[str]:
-    return [f"{r.name}: {r}" for r in rules]
+def export_claim(spec, claim, out_dir) -> Path:
+    """``calcscout export`` of a ``terminating C`` claim: ``DIR/NAME.smt2``, the
+    order-finding query of :func:`export_terminating` with a header saying what the
+    answers mean.  A rule set outside the first-order view is an
+    :class:`~rules.errors.EncodingError`."""
+    f = claim.formula
+    calc = spec.calculi[f.calculus]
+    system, why = view(calc, f.group)
+    if system is None:
+        raise EncodingError(f"claim {claim.name}: no order-finding query: {why}", claim.pos)
+    lines = [f"calcscout export of {claim.name}: {claim.text}",
+             "the order-finding query for the rules below (first-order view: binders dropped, "
+             f"every name the constant {NAME}, metavariables as variables)",
+             *[f"  {r.name}: {r}" for r in system.rules],
+             "sat: an order exists under which every rule decreases (the true use_* literal says "
+             "which kind): the rules terminate on all terms",
+             "unsat: no order of these kinds (coefficients bounded) exists; the rules may still "
+             "terminate (or not): calcscout check decides with its bounded search",
+             f"calcscout-spec: {os.path.abspath(spec.file)}",
+             f"calcscout-claim: {claim.name}",
+             "calcscout-mode: terminating"]
+    header = "".join(f"; {line}\n" for line in lines)
+    text = export_terminating(calc, f.group, header)
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    path = out / (re.sub(r"[^A-Za-z0-9_.-]+", "_", claim.name) + ".smt2")
+    tmp = path.with_suffix(".smt2.tmp")
+    tmp.write_text(text, encoding="utf-8")
+    os.replace(tmp, path)
+    return path

@@ -626,7 +626,7 @@ def poly_text(f: str, n: int, entries: list) -> str:
 def _order_text(w: dict[str, Any], sig: dict[str, int], keep: set[str]) -> str:
     m = w["method"]
     text = METHOD_TEXT[m]
-    if m in ("lpo", "rpo", "lpo-af", "kbo"):
+    if m in ("lpo", "rpo", "lpo-af", "kbo") and ">" in _precedence_text(w["precedence"], keep):
         text += f", precedence {_precedence_text(w['precedence'], keep)}"
     if m == "rpo":
         st = [f"{f}: {'multiset' if s == 'mul' else 'lex ' + ','.join(map(str, s))}"

@@ -26,7 +26,7 @@ from obligations.bounded import InternalError
 from obligations.confluence import decide_terminating
 from obligations.termination import check, dependency_graph, dependency_pairs, prove
 from rules.firstorder import App, Var, view
-from rules.parse import load_file
+from rules.parse import load_file, load_text
 from rules.spec import Bounds, PCon, PMeta, Rule, Spec, Terminating
 
 ROOT = Path(__file__).parent.parent
@@ -139,6 +139,22 @@ def test_bracket_abstraction_group_with_binders_is_proved():
     # the group abs rebuilds binders without substituting: binders as constructors
     v = decide_terminating(spec("bracket.calc"), Terminating("clabs", "abs"), bounds())
     assert (v.verdict, v.scope) == ("holds", "all")
+
+
+def test_sorted_metavariables_and_reduce_in_a_context_are_proved_unrestricted():
+    # value-sorted metavariables read as variables, `reduce in E` dropped: both only
+    # remove steps, so the unrestricted system's proof covers them
+    s = load_text('''calculus cbv {
+      sort val V W ::= zero | succ(V)
+      sort term M N ::= V | add(M, N) | double(M)
+      context E ::= [] | add(E, N) | add(V, E) | double(E)
+      rule add_zero: add(zero, N) -> N
+      rule add_succ: add(succ(V), N) -> succ(add(V, N))
+      rule dbl: double(V) -> add(V, V)
+      reduce in E
+    }''')
+    v = decide_terminating(s, "cbv", bounds())
+    assert (v.verdict, v.scope) == ("holds", "all") and v.witness["method"] == "lpo"
 
 
 # ---------------------------------------------------------------- not claimed

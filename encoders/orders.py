@@ -30,7 +30,7 @@ problem's terms, so the solver sees no recursion):
 Multiset and lexicographic comparisons use syntactic equality of terms (the
 order so obtained is contained in the textbook one, so still well-founded).
 
-Every witness is a plain JSON-able dict; ``obligations.termination`` checks
+Every witness is a plain JSON-able dict; ``calcscout.obligations.engines.termination`` checks
 it again with its own implementation of each comparison before any verdict
 uses it.
 """
@@ -46,7 +46,7 @@ from typing import Any
 
 import z3
 
-from rules.firstorder import App, FTerm, Var
+from calcscout.rules.rewriting.firstorder import App, FTerm, Var
 
 #: Largest coefficient of a polynomial interpretation (linear, quadratic).
 COEFF_BOUND = {"poly1": 6, "poly2": 3}

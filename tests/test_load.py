@@ -8,9 +8,9 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import CalcError
-from rules.parse import load_file, load_text
-from rules.spec import Atom, Confluent, ECall, Implies, Shorthand, Terminating
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.spec import Atom, Confluent, ECall, Implies, Shorthand, Terminating
+from calcscout.rules.loading.load import load_file, load_text
 
 DATA = Path(__file__).parent / "data"
 BAD = sorted((DATA / "bad").glob("*.calc")) + sorted((DATA / "conformance" / "bad").glob("*.calc"))
@@ -161,7 +161,7 @@ def test_string_escapes() -> None:
 def test_bounds_precedence_command_line_within_file_defaults() -> None:
     """LANGUAGE.md §7: command-line flags over `within`, `within` over the file's `bounds`,
     and that over the built-in defaults (size 6, names 1, steps 10, nodes 20000)."""
-    from rules.spec import Bounds
+    from calcscout.rules.core.spec import Bounds
 
     base = "calculus c { names var x\n sort term M ::= x | s(M) }\n"
     plain = load_text(base + "claim k: M ->* M")
@@ -176,7 +176,7 @@ def test_bounds_precedence_command_line_within_file_defaults() -> None:
 
 
 def test_an_included_files_claims_keep_that_files_bounds(tmp_path: Path) -> None:
-    from rules.spec import Bounds
+    from calcscout.rules.core.spec import Bounds
 
     (tmp_path / "base.calc").write_text(
         "calculus b { names var x\n sort term M ::= x | s(M) }\n"
@@ -196,3 +196,28 @@ def test_a_name_matched_outside_every_binder_may_be_returned() -> None:
     # matches outside every binder is free in the redex, so returning it is accepted.
     spec = load_file(DATA / "rule-free-name-kept.calc")
     assert not spec.is_empty()
+
+
+@pytest.mark.parametrize("text, line, message", [
+    ("bounds size 3\nbounds size 5\n", 7, "a second bounds line"),
+    ("bounds size 3, steps 4\nbounds names 0\n", 7, "a second bounds line"),
+    ("bounds size 3, size 5\n", 6, "the bound size is given twice"),
+    ("claim k: M ->* M within steps 3, names 0, steps 5\n", 6, "the bound steps is given twice"),
+])
+def test_a_bound_given_twice_is_an_error(text: str, line: int, message: str) -> None:
+    """Issue 9, item 17 (bounds-twice.calc, within-twice.calc): the last one won
+    silently.  Family: settings that may be given once; checked a second bounds line
+    with the same or other keys, a key twice on one bounds line and in a claim's
+    within; an included file's own bounds line beside the top file's stays fine."""
+    base = "calculus c {\n  names var x\n  sort term M ::= x | s(M)\n}\n\n"
+    with pytest.raises(CalcError) as info:
+        load_text(base + text, "b.calc")
+    assert any(p.pos is not None and p.pos.line == line and message in p.message
+               for p in info.value.problems), info.value.render()
+
+
+def test_an_included_file_keeps_its_own_bounds_line(tmp_path: Path) -> None:
+    (tmp_path / "inc.calc").write_text("calculus c { names var x\n sort term M ::= x }\n"
+                                       "bounds size 2\n")
+    (tmp_path / "top.calc").write_text('include "inc.calc"\nbounds size 4\n')
+    assert load_file(tmp_path / "top.calc").bounds.size == 4

@@ -1,4 +1,4 @@
-"""Printing terms and parsing object terms (rules/notation.py; LANGUAGE.md §3, §4).
+"""Printing terms and parsing object terms (rules/notation/notation.py; LANGUAGE.md §3, §4).
 
 The conformance lines of tests/data/conformance/notation.txt are checked one by
 one against the calculus ``arith`` of every-construct.calc; the other tests pin
@@ -13,11 +13,11 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import TermError
-from rules.notation import notation_tokens, parse_term, print_abstract, print_term
-from rules.parse import load_file
-from rules.spec import AltCon, Calculus
-from rules.terms import Node, bound, name, node
+from calcscout.rules.core.errors import TermError
+from calcscout.rules.core.spec import AltCon, Calculus
+from calcscout.rules.core.terms import Node, bound, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import notation_tokens, parse_term, print_abstract, print_term
 
 DATA = Path(__file__).parent / "data"
 CONFORMANCE = DATA / "conformance"
@@ -308,7 +308,7 @@ def test_unknown_constructor_lists_the_known_ones():
 
 
 def test_a_calculus_without_notations_reads_the_abstract_form_only():
-    from rules.spec import AltNames, Arg, NamesSort, Shape, Sort
+    from calcscout.rules.core.spec import AltNames, Arg, NamesSort, Shape, Sort
 
     plain = Calculus(
         "plain", {"var": NamesSort("var", ("x", "y"))},
@@ -396,6 +396,74 @@ def test_every_kind_of_notation_prints(abstract, shown):
 
 
 def test_the_parser_is_built_once_per_calculus():
-    from rules import notation
+    from calcscout.rules.notation import notation
 
     assert notation._parser(OPS) is notation._parser(OPS)
+
+
+# ---------------------------------------------------------------- notations refused at load time
+
+
+def _load_calc(alts: str, extra: str = ""):
+    from calcscout.rules.loading.load import load_text
+
+    return load_text("calculus t {\n  names var x y\n  names kvar k\n"
+                     f"  sort term M N ::= x | k | {alts}\n}}\n{extra}", "n.calc")
+
+
+@pytest.mark.parametrize("alts, message", [
+    ('add(M, N) "M + N" | sub(M, N) "M + N"', 'reads like the notation "M + N" of add'),
+    ('add(M, N) "M + N" left 50 | sub(M, N) "M + N" right 60', "reads like"),
+    ('add(M, N) "M + N" | add2(M, N) "N + M"', "reads like"),
+    ('lam(x.M) "\\x. M" | lam2(y.M) "\\y. M"', "reads like"),
+    ('pr(M, N) "( M N"', "('(' is not closed)"),
+    ('pr(M, N) "M ) N ("', "(')' closes nothing)"),
+    ('pr(M, N) "[ M , N )"', "(')' closes nothing)"),
+    ('pr(M, N) "M y N"', "the literal y of the notation \"M y N\" spells a name of var"),
+    ('pr(M, N) "M k1 N"', "spells a name of kvar"),
+    ('pr(M, N) "M ` N"', "backquote"),
+    ('big(M) "' + " ".join(f"w{i}" for i in range(64)) + ' M"', "at most 64"),
+])
+def test_notations_that_cannot_be_read_back_are_refused(alts: str, message: str) -> None:
+    """Issue 9, item 16 (notation-*.calc in tests/data/bad): two constructors with one
+    notation crashed the term parser, add/sub with "M + N" printed alike, "( M N" was
+    accepted, a literal spelling a name broke check.  Family: notations whose terms do
+    not read back; checked same pattern with other precedences, swapped operands,
+    binders of one names sort, brackets closed wrongly or in the wrong order, literals
+    spelling names with digits, the backquote, too many tokens; and that the position
+    is the notation string's."""
+    from calcscout.rules.core.errors import CalcError
+
+    with pytest.raises(CalcError) as info:
+        _load_calc(alts)
+    rendered = info.value.render()
+    assert message in rendered, rendered
+    assert rendered.startswith("n.calc:4:")
+    p = info.value.problems[0]
+    line = "  sort term M N ::= x | k | " + alts
+    assert p.pos is not None and line[p.pos.column - 1] == '"'  # at the notation string
+    if "reads like" in message:  # at the later of the two
+        assert p.pos.column - 1 == line.rindex('"', 0, line.rindex('"'))
+
+
+def test_an_extension_reports_an_inherited_clash_once_and_a_new_one_at_itself() -> None:
+    from calcscout.rules.core.errors import CalcError
+
+    ok = _load_calc('lam(x.M) "\\x. M" | klam(k.M) "\\k. M"',
+                    "calculus u extends t {\n  sort term M N ::= pr(M, N) \"< M , N >\"\n}\n")
+    assert set(ok.calculi) == {"t", "u"}
+    with pytest.raises(CalcError) as info:
+        _load_calc('add(M, N) "M + N"',
+                   "calculus u extends t {\n  sort term M N ::= sub(M, N) \"M + N\"\n}\n")
+    assert [p.pos.line for p in info.value.problems] == [7]
+
+
+def test_an_extension_whose_new_name_a_base_literal_spells_is_refused() -> None:
+    from calcscout.rules.core.errors import CalcError
+    from calcscout.rules.loading.load import load_text
+
+    base = 'calculus t {\n  names var x\n  sort term M N ::= x | pr(M, N) "M y N"\n}\n'
+    assert set(load_text(base).calculi) == {"t"}
+    with pytest.raises(CalcError) as info:
+        load_text(base + "calculus u extends t {\n  names var y\n}\n")
+    assert "the literal y of the notation \"M y N\" spells a name of var" in info.value.render()

@@ -20,14 +20,14 @@ from pathlib import Path
 
 import pytest
 
-import encoders.orders as orders
-from obligations import termination
-from obligations.bounded import InternalError
-from obligations.confluence import decide_terminating
-from obligations.termination import check, dependency_graph, dependency_pairs, prove
-from rules.firstorder import App, Var, view
-from rules.parse import load_file, load_text
-from rules.spec import Bounds, PCon, PMeta, Rule, Spec, Terminating
+import calcscout.encoders.orders as orders
+from calcscout.obligations.engines import termination
+from calcscout.obligations.engines.confluence import decide_terminating
+from calcscout.obligations.engines.enumeration import InternalError
+from calcscout.obligations.engines.termination import check, dependency_graph, dependency_pairs, prove
+from calcscout.rules.core.spec import Bounds, PCon, PMeta, Rule, Spec, Terminating
+from calcscout.rules.loading.load import load_file, load_text
+from calcscout.rules.rewriting.firstorder import App, Var, view
 
 ROOT = Path(__file__).parent.parent
 DATA = Path(__file__).parent / "data" / "termination"
@@ -270,7 +270,7 @@ def test_tiny_timeout_never_crashes_and_stays_honest():
 
 
 def run_cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "obligations.cli", *args], capture_output=True,
+    return subprocess.run([sys.executable, "-m", "calcscout.obligations.commands.cli", *args], capture_output=True,
                           text=True, cwd=ROOT, timeout=300)
 
 

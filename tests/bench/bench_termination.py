@@ -10,15 +10,13 @@ proved within 2 s.  Figures include building the query and the independent re-ch
 
 from __future__ import annotations
 
-import sys
 import time
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(ROOT))
+from calcscout.obligations.engines.termination import prove
+from calcscout.rules.loading.load import load_file
 
-from obligations.termination import prove  # noqa: E402
-from rules.parse import load_file  # noqa: E402
+ROOT = Path(__file__).resolve().parents[2]
 
 LIB = ROOT / "rules" / "library"
 DATA = ROOT / "tests" / "data" / "termination"

@@ -270,8 +270,8 @@ def test_tiny_timeout_never_crashes_and_stays_honest():
 
 
 def run_cli(*args: str) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "calcscout.obligations.commands.cli", *args], capture_output=True,
-                          text=True, cwd=ROOT, timeout=300)
+    return subprocess.run([sys.executable, "-m", "calcscout.obligations.commands.cli", *args],
+                          capture_output=True, text=True, cwd=ROOT, timeout=300)
 
 
 def test_json_report_carries_the_witness():

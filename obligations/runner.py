@@ -74,11 +74,13 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
         start = time.perf_counter()
         if ob.normalizes is not None:
             tr = spec.translations[ob.normalizes]
+            from calcscout.obligations.engines.confluence import confluence_theorem
             from calcscout.obligations.engines.termination import normalize_proof
 
             obs.append({**base, "kind": "normalize", "translation": tr.name,
                         "group": tr.normalize, "proof": normalize_proof(
-                            spec.calculi[tr.target], tr.normalize, opts.timeout)})
+                            spec.calculi[tr.target], tr.normalize, opts.timeout,
+                            confluence_theorem)})
         elif enumeration.is_relational(ob) and _engine(spec, ob, opts) == "smt":
             from calcscout.obligations.engines.smt import run_smt
 

@@ -46,11 +46,16 @@ from typing import Any
 
 import networkx as nx
 
-from calcscout.obligations.engines.enumeration import InternalError
 from calcscout.obligations.verdict import HOLDS, REFUTED, Verdict
 from calcscout.rules.core.errors import EncodingError
 from calcscout.rules.core.spec import Calculus
 from calcscout.rules.rewriting.firstorder import NAME, App, FSystem, FTerm, Var, subterms, symbols, view
+
+
+class WitnessRejected(Exception):
+    """The solver's witness failed the independent re-check: a bug in calcscout, reported
+    as an internal error (exit 70), never as a verdict."""
+
 
 #: Seconds per solver query when the command line gives no --timeout.
 DEFAULT_QUERY_TIMEOUT = 3.0
@@ -157,7 +162,7 @@ def _with_rules(w: dict[str, Any], system: FSystem) -> dict[str, Any]:
 def _must_check(system: FSystem, w: dict[str, Any]) -> None:
     problem = check(system, w)
     if problem is not None:
-        raise InternalError(f"the solver's termination witness ({w['method']}) does not "
+        raise WitnessRejected(f"the solver's termination witness ({w['method']}) does not "
                             f"re-check: {problem}")
 
 
@@ -675,14 +680,13 @@ def describe(w: dict[str, Any], system: FSystem) -> str:
 
 
 @lru_cache(maxsize=64)  # a calculus is equal only to itself: one entry per loaded group
-def normalize_proof(calc: Calculus, group: str | None, timeout: float | None = None
-                    ) -> dict[str, Any]:
+def normalize_proof(calc: Calculus, group: str | None, timeout: float | None,
+                    confluence_theorem: Callable) -> dict[str, Any]:
     """For a ``then normalize GROUP`` translation: when the group is proved terminating and
-    a theorem proves it confluent, every term has exactly one normal form — the part
+    ``confluence_theorem`` (the confluence engine's, passed in so that this module does not
+    import it) proves it confluent, every term has exactly one normal form — the part
     ``normalize(F)`` holds for all terms.  ``{"reason": ..., "witness": ...}``, or
     ``{"why_not": ...}``."""
-    from calcscout.obligations.engines.confluence import confluence_theorem
-
     p = prove(calc, group, timeout)
     if not p.proved:
         return {"why_not": p.reason}
@@ -702,7 +706,7 @@ def with_normalize_proof(v: Verdict, proof: dict[str, Any]) -> Verdict:
         v.notes.append(f"normalize not proved for all terms: {proof.get('why_not')}")
         return v
     if v.verdict == REFUTED:
-        raise InternalError(f"{v.name}: several normal forms found, but {proof['reason']}")
+        raise WitnessRejected(f"{v.name}: several normal forms found, but {proof['reason']}")
     if v.undecided:
         v.notes.append(f"{v.undecided} case(s) needed more than the bound on {v.cut_by} to "
                        "reach their normal form (it exists: see the proof)")

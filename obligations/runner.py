@@ -74,8 +74,13 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
         start = time.perf_counter()
         if ob.normalizes is not None:
             tr = spec.translations[ob.normalizes]
+            from calcscout.obligations.engines.confluence import confluence_theorem
+            from calcscout.obligations.engines.termination import normalize_proof
+
             obs.append({**base, "kind": "normalize", "translation": tr.name,
-                        "group": tr.normalize})
+                        "group": tr.normalize, "proof": normalize_proof(
+                            spec.calculi[tr.target], tr.normalize, opts.timeout,
+                            confluence_theorem)})
         elif enumeration.is_relational(ob) and _engine(spec, ob, opts) == "smt":
             from calcscout.obligations.engines.smt import run_smt
 
@@ -143,7 +148,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
                 mine = [x for x in relational if x.name == name]
                 cutoffs[name] = enumeration.first_failure(mine, any(x.collect_all for x in mine))
             v = enumeration.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
-                                          o["group"], b, relational, cutoffs)
+                                              o["group"], b, relational, cutoffs,
+                                              proof=o.get("proof"))
         else:
             v = Verdict.from_json(o["verdict"])
         if "empty" in o and v.verdict == HOLDS and v.scope != "all" and v.tried == 0:
@@ -236,6 +242,6 @@ def _run_rewriting(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions) -> V
     except ImportError:  # the rewriting decisions are a module of their own
         return Verdict(ob.name, ob.claim.file, ob.text, INCONCLUSIVE, b,
                        reason="confluent and terminating are not decided in this build")
-    decide = (confluence.decide_confluent if isinstance(ob.formula, Confluent)
-              else confluence.decide_terminating)
-    return decide(spec, ob, b)
+    if isinstance(ob.formula, Confluent):
+        return confluence.decide_confluent(spec, ob, b)
+    return confluence.decide_terminating(spec, ob, b, timeout=opts.timeout)

@@ -65,6 +65,7 @@ class Verdict:
     part_of: str | None = None
     undecided_example: Counterexample | None = None  # the smallest undecided case
     warning: str | None = None  # e.g. "holds" with no case at all: an empty sort
+    witness: dict[str, Any] | None = None  # a proof's certificate (a termination order)
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -93,6 +94,8 @@ class Verdict:
             out["notes"] = list(self.notes)
         if self.part_of is not None:
             out["part_of"] = self.part_of
+        if self.witness is not None:
+            out["witness"] = self.witness
         return out
 
     @classmethod
@@ -113,6 +116,7 @@ class Verdict:
             undecided_example=(Counterexample.from_json(data["undecided_example"])
                                if data.get("undecided_example") else None),
             warning=data.get("warning"),
+            witness=data.get("witness"),
         )
 
 

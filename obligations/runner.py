@@ -24,7 +24,7 @@ from calcscout.obligations.engines import enumeration
 from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, Verdict, worst
 from calcscout.rules.core.enumerate import count_tuples
 from calcscout.rules.core.errors import EncodingError
-from calcscout.rules.core.spec import Bounds, Claim, Spec
+from calcscout.rules.core.spec import Bounds, Claim, Spec, Terminating
 from calcscout.rules.rewriting.translate import TranslationFailure
 
 
@@ -90,7 +90,7 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
                 obs.append({**base, "kind": "fixed",
                             "verdict": _proof_verdict(ob, claim, b, result).to_json()})
                 continue
-            base["proof"] = proof
+            base["induction"] = proof
         if ob.normalizes is not None and opts.engine == "proof":
             v = Verdict(ob.name, claim.file, ob.text, INCONCLUSIVE, b, engine="proof",
                         reason="the proof engine does not run `then normalize`; "
@@ -98,13 +98,21 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
         elif ob.normalizes is not None:
             tr = spec.translations[ob.normalizes]
+            from calcscout.obligations.engines.confluence import confluence_theorem
+            from calcscout.obligations.engines.termination import normalize_proof
+
             obs.append({**base, "kind": "normalize", "translation": tr.name,
-                        "group": tr.normalize})
+                        "group": tr.normalize, "proof": normalize_proof(
+                            spec.calculi[tr.target], tr.normalize, opts.timeout,
+                            confluence_theorem)})
+        elif isinstance(ob.formula, Terminating) and opts.engine == "proof":
+            v = _termination_proof(spec, ob, claim, b, opts.timeout)
+            v.seconds = time.perf_counter() - start
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
         elif not enumeration.is_relational(ob) and opts.engine == "proof":
             raise EncodingError(f"claim {claim.name}: {ob.text} is not proved by induction; "
-                                "confluence and termination are the rewriting engine's",
-                                claim.pos, hint="use --engine enum or auto for confluent and "
-                                "terminating claims")
+                                "confluence is the rewriting engine's (its theorems)",
+                                claim.pos, hint="use --engine enum or auto for confluent claims")
         elif enumeration.is_relational(ob) and _engine(spec, ob, opts) == "smt":
             from calcscout.obligations.engines.smt import run_smt
 
@@ -127,6 +135,22 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
     return {"claim": claim.name, "file": claim.file, "formula": claim.text,
             "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
             "shard": list(opts.shard) if opts.shard else None, "lemma": claim.lemma}
+
+
+def _termination_proof(spec: Spec, ob: Obligation, claim: Claim, b: Bounds,
+                       timeout: float | None) -> Verdict:
+    """``terminating C`` under ``--engine proof``: the orders of the termination prover
+    only, no bounded search; when no proof is found, the verdict says why."""
+    from calcscout.obligations.engines.termination import prove as prove_termination
+
+    f = ob.formula
+    assert isinstance(f, Terminating)
+    proof = prove_termination(spec.calculi[f.calculus], f.group, timeout)
+    if proof.proved:
+        return Verdict(ob.name, claim.file, ob.text, HOLDS, b, scope="all", reason=proof.reason,
+                       engine="proof", notes=proof.notes, witness=proof.witness)
+    return Verdict(ob.name, claim.file, ob.text, INCONCLUSIVE, b, engine="proof",
+                   reason=f"not proved: {proof.reason}", notes=proof.notes)
 
 
 def _proof_verdict(ob: Obligation, claim: Claim, b: Bounds, result) -> Verdict:
@@ -192,11 +216,12 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
                 mine = [x for x in relational if x.name == name]
                 cutoffs[name] = enumeration.first_failure(mine, any(x.collect_all for x in mine))
             v = enumeration.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
-                                          o["group"], b, relational, cutoffs)
+                                              o["group"], b, relational, cutoffs,
+                                              proof=o.get("proof"))
         else:
             v = Verdict.from_json(o["verdict"])
-        if o.get("proof") is not None and v.proof is None:
-            v.proof = o["proof"]
+        if o.get("induction") is not None and v.proof is None:
+            v.proof = o["induction"]
         if "empty" in o and v.verdict == HOLDS and v.scope != "all" and v.tried == 0:
             # vacuous: "holds" must not read as if anything had been tried
             empty = o["empty"]
@@ -291,6 +316,6 @@ def _run_rewriting(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions) -> V
     except ImportError:  # the rewriting decisions are a module of their own
         return Verdict(ob.name, ob.claim.file, ob.text, INCONCLUSIVE, b,
                        reason="confluent and terminating are not decided in this build")
-    decide = (confluence.decide_confluent if isinstance(ob.formula, Confluent)
-              else confluence.decide_terminating)
-    return decide(spec, ob, b)
+    if isinstance(ob.formula, Confluent):
+        return confluence.decide_confluent(spec, ob, b)
+    return confluence.decide_terminating(spec, ob, b, timeout=opts.timeout)

@@ -69,6 +69,7 @@ class Verdict:
     lemmas: list[str] = field(default_factory=list)  # proved lemmas its proof used
     assumes: list[str] = field(default_factory=list)  # lemmas used that are only bounded
     warning: str | None = None  # e.g. "holds" with no case at all: an empty sort
+    witness: dict[str, Any] | None = None  # a proof's certificate (a termination order)
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -105,6 +106,8 @@ class Verdict:
             out["assumes"] = list(self.assumes)
         if self.proof is not None:
             out["proof"] = self.proof
+        if self.witness is not None:
+            out["witness"] = self.witness
         return out
 
     @classmethod
@@ -127,6 +130,7 @@ class Verdict:
             lemma=bool(data.get("lemma", False)), proof=data.get("proof"),
             lemmas=list(data.get("lemmas", [])), assumes=list(data.get("assumes", [])),
             warning=data.get("warning"),
+            witness=data.get("witness"),
         )
 
 

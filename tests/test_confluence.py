@@ -150,7 +150,8 @@ def test_combinatory_logic_has_a_term_that_reduces_to_itself():
 def test_terminating_systems_hold_up_to_bounds():
     for file, calc in [("groups.calc", "group"), ("arith-trs.calc", "peano"),
                        ("lamv.calc", "lamv")]:
-        v = decide_terminating(spec(file), calc, bounds(size=5))
+        # the bounded search alone (the proofs are in tests/test_termination.py)
+        v = decide_terminating(spec(file), calc, bounds(size=5), prove=False)
         assert (v.verdict, v.scope, v.undecided) == ("holds", "bounded", 0), calc
         assert v.tried > 0
 

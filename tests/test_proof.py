@@ -168,6 +168,14 @@ def test_proof_engine_refuses_confluence_claims(capsys) -> None:
     assert code == 2 and "not proved by induction" in err
 
 
+def test_terminating_under_the_proof_engine_is_the_orders_alone(capsys) -> None:
+    """Issue-level contract: with --engine proof a terminating claim gets the termination
+    orders only, and says why it is not proved (beta substitutes on its right side)."""
+    code, out, _ = run(capsys, "check", str(LIB / "lambda.calc"), "beta_terminates", "--engine",
+                       "proof")
+    assert code == 3 and "substitution on the right-hand side" in out
+
+
 def test_written_proof_markdown_and_latex(capsys, tmp_path) -> None:
     md, tex = tmp_path / "p.md", tmp_path / "p.tex"
     for path in (md, tex):

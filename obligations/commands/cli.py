@@ -461,6 +461,14 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
     if claim is None:
         raise UsageError(f"no claim {claim_name} in {spec.file}",
                          hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
+    from calcscout.rules.core.spec import Terminating
+
+    if isinstance(claim.formula, Terminating):  # the order-finding query (sat: terminating)
+        from calcscout.obligations.engines.termination import export_claim
+
+        _check_export_folder(out_dir, spec, claim)
+        click.echo(str(export_claim(spec, claim, out_dir)))
+        return
     _check_export_folder(out_dir, spec, claim)
     b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
     for path in export_obligations(spec, claim, plan(spec, claim).obligations, b, out_dir):

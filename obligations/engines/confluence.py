@@ -24,7 +24,9 @@
     going on past ``size`` up to the instance's size when it must.
 
 ``terminating C``
-  case by case as well: a reduction cycle reachable from the term fails it
+  proved for all terms where :mod:`calcscout.obligations.engines.termination` finds an order
+  (path orders, Knuth-Bendix, polynomial interpretations, dependency pairs)
+  and checks it again; otherwise case by case as well: a reduction cycle reachable from the term fails it
   definitely; a graph cut by ``steps`` or ``nodes`` leaves it undecided; a
   complete acyclic graph settles it.
 
@@ -593,8 +595,11 @@ def _most(cuts: Tally[str]) -> str | None:
 # ---------------------------------------------------------------- terminating
 
 
-def decide_terminating(spec: Spec, what, bounds: Bounds) -> Verdict:
-    """The verdict on ``terminating C`` (``what`` as for :func:`decide_confluent`)."""
+def decide_terminating(spec: Spec, what, bounds: Bounds, prove: bool = True,
+                       timeout: float | None = None) -> Verdict:
+    """The verdict on ``terminating C`` (``what`` as for :func:`decide_confluent`): a
+    termination proof first (:mod:`calcscout.obligations.engines.termination`, ``timeout`` seconds per
+    solver query), the bounded search where there is none."""
     start = time.perf_counter()
     tg = _target(spec, what, Terminating)
     b = _bounds(bounds)
@@ -603,6 +608,17 @@ def decide_terminating(spec: Spec, what, bounds: Bounds) -> Verdict:
     undecided = 0
     cuts: Tally[str] = Tally()
     notes: list[str] = []
+    why_not = None
+    if prove:
+        from calcscout.obligations.engines.termination import prove as prove_termination
+
+        proof = prove_termination(calc, group, timeout)
+        if proof.proved:
+            return Verdict(tg.name, tg.file, tg.text, HOLDS, b, scope="all", reason=proof.reason,
+                           seconds=time.perf_counter() - start, notes=proof.notes,
+                           witness=proof.witness)
+        why_not = proof.reason
+        notes.extend(proof.notes)
     for t in case_terms(calc, b):
         tried += 1
         with paused_gc():
@@ -621,11 +637,15 @@ def decide_terminating(spec: Spec, what, bounds: Bounds) -> Verdict:
                                     f"cycle {' '.join(around)}")
                 return Verdict(tg.name, tg.file, tg.text, REFUTED, b, tried=tried,
                                undecided=undecided, cut_by=_most(cuts), counterexample=ce,
-                               seconds=time.perf_counter() - start, notes=notes)
+                               seconds=time.perf_counter() - start, notes=notes,
+                               reason=why_not)
             notes.append(f"a cycle from {print_abstract(calc, t)} did not survive the re-check")
         if not g.graph["complete"]:
             undecided += 1
             cuts[g.graph["cut_by"]] += 1
     v = INCONCLUSIVE if undecided else HOLDS
+    if undecided and why_not:
+        why_not = f"{undecided} case(s) cut by the bound on {_most(cuts)}; {why_not}"
     return Verdict(tg.name, tg.file, tg.text, v, b, tried=tried, undecided=undecided,
-                   cut_by=_most(cuts), seconds=time.perf_counter() - start, notes=notes)
+                   cut_by=_most(cuts), seconds=time.perf_counter() - start, notes=notes,
+                   reason=why_not)

@@ -349,7 +349,7 @@ def _main_bound(undecided: list[tuple[int, str]]) -> str | None:
 
 def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bounds: Bounds,
                       parts: list[Partial], cutoffs: dict[str, int | None],
-                      engine: str = "enum") -> Verdict:
+                      engine: str = "enum", proof: dict[str, Any] | None = None) -> Verdict:
     """The ``normalize(T)`` part: the group ended with one normal form on every term it met.
 
     Only the cases each obligation's own verdict rests on count (up to its first
@@ -390,6 +390,10 @@ def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bou
         v.cut_by = cuts.most_common(1)[0][0]
         v.reason = (f"{v.undecided} of {met} case(s) met a term with no normal form under "
                     f"{group} within the bound on {v.cut_by}")
+    if proof is not None:  # the group proved terminating and confluent, or why not
+        from calcscout.obligations.engines.termination import with_normalize_proof
+
+        v = with_normalize_proof(v, proof)
     return v
 
 

@@ -82,7 +82,7 @@ PROVED, OPEN = "proved", "open"
 NEEDS_LEMMA, STUCK, SPLIT_LIMIT, SEARCH_CUT = "needs-lemma", "stuck", "split-limit", "search-cut"
 REWRITE_ROUNDS = 40
 SPLIT_BUDGET = 20  # splits in one induction, in all
-PROOF_SECONDS = 5.0  # then the cases not yet tried are left open
+PROOF_SECONDS = 2.0  # then the cases not yet tried are left open
 SEARCH_SPLITS = 3  # nested splits for a case decided by a search (each split multiplies it)
 SEARCH_NODES = 3000  # terms in one search of a proof case (also within `nodes`)
 

@@ -12,13 +12,12 @@ from __future__ import annotations
 from pathlib import Path
 
 import pytest
+from proof_mutants import mutants
 
 from calcscout.obligations.runner import RunOptions, run_claims
 from calcscout.rules.core.errors import CalcError
 from calcscout.rules.core.spec import Bounds, Confluent, Terminating
 from calcscout.rules.loading.load import load_file, load_text
-
-from .proof_mutants import mutants
 
 ROOT = Path(__file__).resolve().parents[1]
 DATA = ROOT / "tests" / "data"

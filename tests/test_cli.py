@@ -215,8 +215,14 @@ def test_engine_choice_is_reported_per_claim(capsys) -> None:
                        "--json", "-")
     entries = {c["name"]: c for c in json.loads(out)["claims"]}
     assert code == 0
-    assert entries["back"]["engine"] == "smt"  # an exact equation: the solver decides it
+    # auto tries a proof first: the exact inverse is proved for all terms; the simulation is
+    # not proved here (no substitution lemma), so the bounded engine for ->* decides it
+    assert entries["back"]["engine"] == "proof" and entries["back"]["scope"] == "all"
     assert entries["sim"]["engine"] == "enum"  # ->* needs reduction paths
+    assert entries["sim"]["proof"]["open"]  # and the proof's open cases are kept
+    code, out, _ = run(capsys, "check", cps, "back", "--engine", "smt", "--size", "5",
+                       "--json", "-")
+    assert json.loads(out)["claims"][0]["engine"] == "smt"  # an exact equation: the solver
     code, _, err = run(capsys, "check", BASICS, "flip_back", "--engine", "smt", "--size", "4")
     assert code == 0
     code, _, err = run(capsys, "check", str(DATA / "conformance" / "every-construct.calc"),

@@ -314,6 +314,42 @@ def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, parti
             "all": collect_all, "records": partials}
 
 
+# ---------------------------------------------------------------- latex
+
+
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("items", nargs=-1)
+@click.option("-o", "output", required=True, metavar="PATH.tex", help="Where to write the document.")
+def latex(file: str, items: tuple[str, ...], output: str) -> None:
+    """Write a LaTeX document: grammars, rules, equations, and the claims' counterexamples.
+
+    An ITEM names a calculus, translation or claim to include (none: everything);
+    the claims included are checked as `check` would.
+    """
+    from calcscout.obligations.reporting.latex import latex_document
+    from calcscout.obligations.reporting.report import write_atomically
+    from calcscout.obligations.runner import RunOptions, run_claims
+
+    spec = load(file)
+    _check_outputs(spec.files, output)
+    calculi, translations, claims = list(spec.calculi), list(spec.translations), list(spec.claims)
+    if items:
+        by_claim = {c.name: c for c in spec.claims}
+        for it in items:
+            if it not in spec.calculi and it not in spec.translations and it not in by_claim:
+                known = ", ".join([*spec.calculi, *spec.translations, *by_claim]) or "none"
+                raise UsageError(f"no calculus, translation or claim {it} in {spec.file}",
+                                 hint=f"items: {known}")
+        calculi = [c for c in calculi if c in items]
+        translations = [t for t in translations if t in items]
+        claims = [c for c in claims if c.name in items]
+    verdicts, _ = run_claims(spec, claims, RunOptions()) if claims else ([], {})
+    write_atomically(output, latex_document(spec, calculi, translations, verdicts), spec.files)
+    click.echo(f"wrote {output}: {len(calculi)} calculi, {len(translations)} translation(s), "
+               f"{len(claims)} claim(s)")
+
+
 # ---------------------------------------------------------------- reduce
 
 

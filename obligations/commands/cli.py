@@ -239,9 +239,14 @@ def _shard_option(ctx, param, value):
 @click.option("--all", "collect_all", is_flag=True,
               help="Keep going after the first counterexample (up to 10 per claim).")
 @click.option("--quiet", is_flag=True, help="List only the claims that do not hold.")
+@click.option("--culprits", is_flag=True,
+              help="Name the rules and equations each counterexample needs (several checks more).")
+@click.option("--by-rule", "by_rule", is_flag=True,
+              help="Split each `M -> N implies ...` into one part per rule of the premise's step.")
 def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
-          shard, collect_all: bool, quiet: bool) -> None:
+          shard, collect_all: bool, quiet: bool, culprits: bool = False,
+          by_rule: bool = False) -> None:
     """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
     from calcscout.obligations.reporting.report import (
         dumps,
@@ -272,6 +277,12 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         verdicts, partials = run_claims(spec, chosen, opts)
     finally:
         progress.clear()
+    if culprits or by_rule:
+        if shard:
+            raise UsageError("--culprits and --by-rule take the whole run, not a --shard")
+        from calcscout.obligations.analysis.explain_failure import analyse
+
+        verdicts = analyse(spec, verdicts, opts.bounds, culprits, by_rule)
     extra = (_shard_fields(sources, shard, engine, timeout, collect_all, partials) if shard
              else None)
     report = json_report(spec.file, verdicts, extra)

@@ -123,6 +123,12 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
         if graph:
             state = "complete" if graph.get("complete") else f"cut by {graph.get('cut_by')}"
             out.append(f"  graph:    {graph.get('nodes')} term(s) from {graph.get('root')}, {state}")
+        culprits = ce.details.get("culprits") if ce.details else None
+        if culprits:  # check --culprits (obligations/analysis/culprits.py)
+            out.append(f"  used:     {', '.join(culprits['used']) or 'no rule, no equation'}")
+            if "minimal" in culprits:
+                out.append("  minimal:  " + (", ".join(culprits["minimal"]) or
+                                             "no rule (the failure lies in the translations)"))
     ex = v.undecided_example
     if ex is not None:
         out.append("  smallest undecided case" + (f" (size {ex.size}):" if ex.size else ":"))

@@ -43,8 +43,8 @@ from calcscout.rules.notation.notation import (
     _Form,
     _form_of,
     _Namer,
-    _reading,
     _Reading,
+    _reading,
     form_arity,
     notation_tokens,
 )
@@ -115,8 +115,8 @@ def typeset_problems(text: str, placeholders: Sequence[str]) -> list[tuple[str, 
 
     >>> typeset_problems("\\\\lambda x.\\\\, M", ["x", "M"])
     []
-    >>> typeset_problems("M M", ["M", "N"])
-    [("the LaTeX form uses M twice; each placeholder exactly once (M, N)", 3), ("the LaTeX form does not use N; each placeholder exactly once (M, N)", 0)]
+    >>> [(message.split(";")[0], column) for message, column in typeset_problems("M M", "MN")]
+    [('the LaTeX form uses M twice', 3), ('the LaTeX form does not use N', 0)]
     """
     problems: list[tuple[str, int]] = []
     wanted = list(dict.fromkeys(placeholders))

@@ -1,0 +1,258 @@
+"""Which rules and equations a refuted claim's failure depends on (``check --culprits``).
+
+Two answers, both about one refuted relational obligation:
+
+- **used**: the rules and translation equations the counterexample's evidence
+  uses, recomputed on that one counterexample (the enumeration's loop is not
+  instrumented): the rules by which the premise steps from ``M`` to ``N``;
+  every rule that labels a step of the reduction graphs the conclusion
+  explores (from its left side, and from both sides of ``joins``), within the
+  claim's bounds; every equation that fires while the claim's translations are
+  computed on the counterexample's terms.  Rules are named ``CALC.RULE``,
+  equations ``TRANSLATION: FN(PATTERN)`` as written.
+- **minimal**: a 1-minimal set of rules of the *premise's calculus* (for a
+  claim without premise: of the calculus of its relation) such that the
+  calculus with only these rules still refutes the claim within the same
+  bounds, found by delta debugging (Zeller and Hildebrandt, "Simplifying and
+  isolating failure-inducing input", IEEE TSE 2002) over the calculus's rule
+  list.  "1-minimal": dropping any one rule of the set repairs the claim
+  within the bounds; a smaller set of other rules may exist.  Dropping rules
+  changes that calculus everywhere in the claim (premise, conclusion and
+  normalising translations alike).  An empty set means the failure needs no
+  rule of that calculus at all: it lies in the translations (see *used*).
+  A claim with ``==`` only has no such calculus and gets no minimal set.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from collections.abc import Callable, Sequence
+from typing import Any
+
+from calcscout.obligations.analysis.keys import term_calculi
+from calcscout.obligations.claims import Obligation
+from calcscout.obligations.engines import enumeration
+from calcscout.obligations.verdict import REFUTED, Counterexample, Verdict
+from calcscout.rules.core.spec import (
+    Atom,
+    Bounds,
+    Calculus,
+    ECall,
+    Equation,
+    Expr,
+    Implies,
+    PAbs,
+    Pattern,
+    PCall,
+    PCon,
+    PMeta,
+    PName,
+    PPlug,
+    PSubst,
+    Rule,
+    Spec,
+)
+from calcscout.rules.core.terms import Term
+from calcscout.rules.notation.notation import parse_term
+from calcscout.rules.rewriting.match import match
+from calcscout.rules.rewriting.rewrite import reduction_graph, reducts
+from calcscout.rules.rewriting.translate import Translator
+
+# ---------------------------------------------------------------- names
+
+
+def pattern_text(p: Pattern) -> str:
+    """A pattern in abstract form, as a rule file writes it."""
+    if isinstance(p, PMeta | PName):
+        return p.name
+    if isinstance(p, PAbs):
+        return "".join(f"{n}." for n in p.names) + pattern_text(p.body)
+    if isinstance(p, PCon):
+        return f"{p.con}({', '.join(pattern_text(a) for a in p.args)})" if p.args else p.con
+    if isinstance(p, PPlug):
+        return f"{p.context.name}[{pattern_text(p.arg)}]"
+    if isinstance(p, PSubst):
+        pairs = ", ".join(f"{n.name} := {pattern_text(q)}" for n, q in p.pairs)
+        return f"{pattern_text(p.body)}[{pairs}]"
+    assert isinstance(p, PCall)
+    return f"{p.fn}({', '.join(pattern_text(a) for a in p.args)})"
+
+
+def rule_label(calc: Calculus, rule: str) -> str:
+    return f"{calc.name}.{rule}"
+
+
+def equation_label(translation: str, eq: Equation) -> str:
+    args = [pattern_text(eq.pattern), *(m.name for m in eq.extra)]
+    return f"{translation}: {eq.fn}({', '.join(args)})"
+
+
+# ---------------------------------------------------------------- used
+
+
+class _Tracing(Translator):
+    """A translator that records the equation each call is answered by."""
+
+    def __init__(self, spec: Spec, tr, bounds: Bounds, seen: dict[str, None]):
+        super().__init__(spec, tr, bounds)
+        self.seen = seen
+
+    def build(self, fn: str, term: Term, extra: Sequence[Term] = ()) -> Term:
+        avoid = {n for e in extra for n in e.free}
+        for eq in self._by_fn[fn]:  # the first equation that matches is the one applied
+            if next(iter(match(self.source, eq.pattern, term, avoid=avoid)), None) is not None:
+                self.seen.setdefault(equation_label(self.tr.name, eq), None)
+                break
+        return super().build(fn, term, extra)
+
+
+def case_terms(spec: Spec, ob: Obligation, ce: Counterexample) -> dict[str, Term]:
+    """The counterexample's terms read back, by the text the claim writes."""
+    calc_of = term_calculi(spec, ob)
+    out: dict[str, Term] = {}
+    for key, text in ce.terms.items():
+        calc = calc_of.get(key)
+        if calc is not None and isinstance(text, str):
+            out[key] = parse_term(spec.calculi[calc], text, "<counterexample>")
+    return out
+
+
+def used(spec: Spec, ob: Obligation, ce: Counterexample, bounds: Bounds) -> list[str]:
+    """The rules and equations the evidence of ``ce`` uses (see the module's docstring)."""
+    f = ob.formula
+    assert isinstance(f, Atom | Implies)
+    terms = case_terms(spec, ob, ce)
+    rules: dict[str, None] = {}
+    equations: dict[str, None] = {}
+    tracers: dict[str, _Tracing] = {}
+
+    def value(e: Expr) -> Term | None:
+        if isinstance(e, ECall):
+            args = [value(a) for a in e.args]
+            if any(a is None for a in args):
+                return None
+            tr = tracers.get(e.translation)
+            if tr is None:
+                tr = _Tracing(spec, spec.translations[e.translation], bounds, equations)
+                tracers[e.translation] = tr
+            return tr.build(e.fn, args[0], args[1:])  # type: ignore[arg-type]
+        return terms.get(e.name)
+
+    if isinstance(f, Implies):
+        rel = f.premise.relation
+        m, n = value(f.premise.left), value(f.premise.right)  # type: ignore[arg-type]
+        if rel is not None and rel.calculus is not None and m is not None and n is not None:
+            calc = spec.calculi[rel.calculus]
+            for step in reducts(calc, m, rel.group):
+                if step.result is n:
+                    rules.setdefault(rule_label(calc, step.rule), None)
+        atom = f.conclusion
+    else:
+        atom = f
+    left = value(atom.left)
+    right = value(atom.right) if atom.right is not None else None
+    rel = atom.relation
+    if rel is not None and rel.calculus is not None and rel.kind != "==":
+        calc = spec.calculi[rel.calculus]
+        roots = [left, right] if rel.kind == "joins" else [left]
+        assert bounds.steps is not None and bounds.nodes is not None
+        for root in roots:
+            if root is None:
+                continue
+            g = reduction_graph(calc, root, bounds.steps, bounds.nodes, rel.group)
+            for _, _, data in g.edges(data=True):
+                for rule, _pos in data["steps"]:
+                    rules.setdefault(rule_label(calc, rule), None)
+    return [*rules, *equations]
+
+
+# ---------------------------------------------------------------- minimal
+
+
+def ddmin(items: Sequence[Any], fails: Callable[[list[Any]], bool]) -> list[Any]:
+    """A 1-minimal sublist of ``items`` on which ``fails`` holds (Zeller and Hildebrandt
+    2002, the ddmin algorithm), given that it holds on ``items``; the empty list first.
+
+    >>> ddmin(list(range(8)), lambda s: 3 in s and 6 in s)
+    [3, 6]
+    >>> ddmin([1, 2, 3], lambda s: True)
+    []
+    """
+    memo: dict[tuple, bool] = {}
+
+    def test(s: list[Any]) -> bool:
+        key = tuple(s)
+        if key not in memo:
+            memo[key] = fails(s)
+        return memo[key]
+
+    items = list(items)
+    if test([]):
+        return []
+    n = 2
+    while len(items) >= 2:
+        size = -(-len(items) // n)
+        chunks = [items[i:i + size] for i in range(0, len(items), size)]
+        for c in chunks:
+            if test(c):
+                items, n = c, 2
+                break
+        else:
+            for i in range(len(chunks)):
+                rest = [x for j, c in enumerate(chunks) if j != i for x in c]
+                if test(rest):
+                    items, n = rest, max(n - 1, 2)
+                    break
+            else:
+                if n >= len(items):
+                    break
+                n = min(len(items), 2 * n)
+    return items
+
+
+def culprit_calculus(ob: Obligation) -> str | None:
+    """The calculus whose rules ``minimal`` ranges over: the premise's, else the relation's."""
+    f = ob.formula
+    rel = f.premise.relation if isinstance(f, Implies) else getattr(f, "relation", None)
+    return rel.calculus if rel is not None else None
+
+
+def with_rules(spec: Spec, calc: str, rules: Sequence[Rule]) -> Spec:
+    """``spec`` with calculus ``calc`` keeping only ``rules``."""
+    new = dataclasses.replace(spec.calculi[calc], rules=tuple(rules))
+    return dataclasses.replace(spec, calculi={**spec.calculi, calc: new})
+
+
+def still_refuted(spec: Spec, ob: Obligation, bounds: Bounds) -> bool:
+    return bool(enumeration.run_shard(spec, ob, bounds).failures)
+
+
+def minimal(spec: Spec, ob: Obligation, bounds: Bounds) -> list[str] | None:
+    """A 1-minimal set of rules of the culprit calculus that keeps ``ob`` refuted."""
+    name = culprit_calculus(ob)
+    if name is None:
+        return None
+    calc = spec.calculi[name]
+    keep = ddmin(list(calc.rules),
+                 lambda rules: still_refuted(with_rules(spec, name, rules), ob, bounds))
+    return [rule_label(calc, r.name) for r in keep]
+
+
+# ---------------------------------------------------------------- the check command
+
+
+def annotate(spec: Spec, verdicts: Sequence[Verdict], obligations: dict[str, Obligation],
+             command_line: Bounds) -> None:
+    """Add ``culprits`` to the details of every refuted relational counterexample."""
+    for v in verdicts:
+        ce = v.counterexample
+        ob = obligations.get(v.name)
+        if v.verdict != REFUTED or ce is None or ob is None \
+                or not isinstance(ob.formula, Atom | Implies):
+            continue
+        bounds = spec.claim_bounds(ob.claim, command_line)
+        found: dict[str, Any] = {"used": used(spec, ob, ce, bounds)}
+        least = minimal(spec, ob, bounds)
+        if least is not None:
+            found["minimal"] = least
+        ce.details["culprits"] = found

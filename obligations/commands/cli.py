@@ -332,7 +332,11 @@ def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, parti
 @click.argument("file", type=click.Path(dir_okay=False))
 @click.argument("items", nargs=-1)
 @click.option("-o", "output", required=True, metavar="PATH.tex", help="Where to write the document.")
-def latex(file: str, items: tuple[str, ...], output: str) -> None:
+@size_option
+@steps_option
+@names_option
+@nodes_option
+def latex(file: str, items: tuple[str, ...], output: str, size, steps, names, nodes) -> None:
     """Write a LaTeX document: grammars, rules, equations, and the claims' counterexamples.
 
     An ITEM names a calculus, translation or claim to include (none: everything);
@@ -355,7 +359,8 @@ def latex(file: str, items: tuple[str, ...], output: str) -> None:
         calculi = [c for c in calculi if c in items]
         translations = [t for t in translations if t in items]
         claims = [c for c in claims if c.name in items]
-    verdicts, _ = run_claims(spec, claims, RunOptions()) if claims else ([], {})
+    opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes))
+    verdicts, _ = run_claims(spec, claims, opts) if claims else ([], {})
     write_atomically(output, latex_document(spec, calculi, translations, verdicts), spec.files)
     click.echo(f"wrote {output}: {len(calculi)} calculi, {len(translations)} translation(s), "
                f"{len(claims)} claim(s)")

@@ -75,7 +75,7 @@ def calculus_lines(calc: Calculus) -> list[str]:
     out.append(" \\\\\n".join(lines))
     out.append(r"\end{align*}")
     if calc.reduce_in is not None:
-        out.append(f"Reduction takes place in the contexts {_sort_name(calc.reduce_in)} "
+        out.append(f"Reduction takes place in the contexts ${_sort_name(calc.reduce_in)}$ "
                    "only.")
         out.append("")
     out.append(r"\subsection*{Rules}")

@@ -9,7 +9,12 @@ Two answers, both about one refuted relational obligation:
   explores (from its left side, and from both sides of ``joins``), within the
   claim's bounds; every equation that fires while the claim's translations are
   computed on the counterexample's terms.  Rules are named ``CALC.RULE``,
-  equations ``TRANSLATION: FN(PATTERN)`` as written.
+  equations ``TRANSLATION: FN(PATTERN)`` as written.  For ``confluent``: the
+  rules that step from the peak; for ``terminating``: the rules of the cycle.
+- **at_redex** (a claim with a premise ``M -> N``): the equations that
+  translated the redex of the premise's step.  A smallest counterexample has
+  little else in it, so these are the first suspects: in a ``mono`` part they
+  are the equations whose result the step does not carry over.
 - **minimal**: a 1-minimal set of rules of the *premise's calculus* (for a
   claim without premise: of the calculus of its relation) such that the
   calculus with only these rules still refutes the claim within the same
@@ -37,6 +42,7 @@ from calcscout.rules.core.spec import (
     Atom,
     Bounds,
     Calculus,
+    Confluent,
     ECall,
     Equation,
     Expr,
@@ -51,8 +57,9 @@ from calcscout.rules.core.spec import (
     PSubst,
     Rule,
     Spec,
+    Terminating,
 )
-from calcscout.rules.core.terms import Term
+from calcscout.rules.core.terms import Node, Term
 from calcscout.rules.notation.notation import parse_term
 from calcscout.rules.rewriting.match import match
 from calcscout.rules.rewriting.rewrite import reduction_graph, reducts
@@ -96,12 +103,15 @@ class _Tracing(Translator):
     def __init__(self, spec: Spec, tr, bounds: Bounds, seen: dict[str, None]):
         super().__init__(spec, tr, bounds)
         self.seen = seen
+        self.calls: list[tuple[Term, str]] = []  # (the term a call translated, its equation)
 
     def build(self, fn: str, term: Term, extra: Sequence[Term] = ()) -> Term:
         avoid = {n for e in extra for n in e.free}
         for eq in self._by_fn[fn]:  # the first equation that matches is the one applied
             if next(iter(match(self.source, eq.pattern, term, avoid=avoid)), None) is not None:
-                self.seen.setdefault(equation_label(self.tr.name, eq), None)
+                label = equation_label(self.tr.name, eq)
+                self.seen.setdefault(label, None)
+                self.calls.append((term, label))
                 break
         return super().build(fn, term, extra)
 
@@ -117,8 +127,20 @@ def case_terms(spec: Spec, ob: Obligation, ce: Counterexample) -> dict[str, Term
     return out
 
 
-def used(spec: Spec, ob: Obligation, ce: Counterexample, bounds: Bounds) -> list[str]:
-    """The rules and equations the evidence of ``ce`` uses (see the module's docstring)."""
+def _subterm(t: Term, position: Sequence[int]) -> Term | None:
+    """The subterm at ``position``, or None under a binder (its body has loose indices)."""
+    for i in position:
+        if not isinstance(t, Node) or t.binders[i]:
+            return None
+        t = t.args[i]
+    return t
+
+
+def used(spec: Spec, ob: Obligation, ce: Counterexample, bounds: Bounds
+         ) -> tuple[list[str], list[str]]:
+    """The rules and equations the evidence of ``ce`` uses (see the module's docstring), and
+    the equations that translated the premise step's redex (empty without a premise, or when
+    the redex lies under a binder)."""
     f = ob.formula
     assert isinstance(f, Atom | Implies)
     terms = case_terms(spec, ob, ce)
@@ -138,6 +160,7 @@ def used(spec: Spec, ob: Obligation, ce: Counterexample, bounds: Bounds) -> list
             return tr.build(e.fn, args[0], args[1:])  # type: ignore[arg-type]
         return terms.get(e.name)
 
+    redexes: list[Term] = []
     if isinstance(f, Implies):
         rel = f.premise.relation
         m, n = value(f.premise.left), value(f.premise.right)  # type: ignore[arg-type]
@@ -146,6 +169,9 @@ def used(spec: Spec, ob: Obligation, ce: Counterexample, bounds: Bounds) -> list
             for step in reducts(calc, m, rel.group):
                 if step.result is n:
                     rules.setdefault(rule_label(calc, step.rule), None)
+                    sub = _subterm(m, step.position)
+                    if sub is not None:
+                        redexes.append(sub)
         atom = f.conclusion
     else:
         atom = f
@@ -163,7 +189,33 @@ def used(spec: Spec, ob: Obligation, ce: Counterexample, bounds: Bounds) -> list
             for _, _, data in g.edges(data=True):
                 for rule, _pos in data["steps"]:
                     rules.setdefault(rule_label(calc, rule), None)
-    return [*rules, *equations]
+    at_redex: dict[str, None] = {}
+    for tracer in tracers.values():
+        for term, label in tracer.calls:
+            if any(term is r for r in redexes):
+                at_redex.setdefault(label, None)
+    return [*rules, *equations], list(at_redex)
+
+
+def used_rewriting(spec: Spec, ob: Obligation, ce: Counterexample) -> list[str]:
+    """For ``terminating``: the rules of the cycle's steps; for ``confluent``: the rules of
+    the two diverging reductions (every step from the peak to each side)."""
+    f = ob.formula
+    calc = spec.calculi[f.calculus]  # type: ignore[union-attr]
+    group = f.group  # type: ignore[union-attr]
+    read = {k: v for k, v in ce.terms.items()}
+    rules: dict[str, None] = {}
+    if isinstance(read.get("cycle"), list):
+        cycle = [parse_term(calc, x, "<counterexample>") for x in read["cycle"]]
+        for a, b in zip(cycle, cycle[1:] + cycle[:1], strict=True):
+            for step in reducts(calc, a, group):
+                if step.result is b:
+                    rules.setdefault(rule_label(calc, step.rule), None)
+    elif isinstance(read.get("term"), str):
+        peak = parse_term(calc, read["term"], "<counterexample>")
+        for step in reducts(calc, peak, group):
+            rules.setdefault(rule_label(calc, step.rule), None)
+    return list(rules)
 
 
 # ---------------------------------------------------------------- minimal
@@ -211,8 +263,11 @@ def ddmin(items: Sequence[Any], fails: Callable[[list[Any]], bool]) -> list[Any]
 
 
 def culprit_calculus(ob: Obligation) -> str | None:
-    """The calculus whose rules ``minimal`` ranges over: the premise's, else the relation's."""
+    """The calculus whose rules ``minimal`` ranges over: the premise's, else the relation's
+    (for ``confluent`` and ``terminating``: the calculus itself)."""
     f = ob.formula
+    if isinstance(f, Confluent | Terminating):
+        return f.calculus
     rel = f.premise.relation if isinstance(f, Implies) else getattr(f, "relation", None)
     return rel.calculus if rel is not None else None
 
@@ -224,6 +279,13 @@ def with_rules(spec: Spec, calc: str, rules: Sequence[Rule]) -> Spec:
 
 
 def still_refuted(spec: Spec, ob: Obligation, bounds: Bounds) -> bool:
+    """Whether the bounded check of ``ob`` (by the engine that decides it) finds a failure."""
+    if isinstance(ob.formula, Confluent | Terminating):
+        from calcscout.obligations.engines import confluence
+
+        decide = (confluence.decide_terminating if isinstance(ob.formula, Terminating)
+                  else confluence.decide_confluent)
+        return decide(spec, ob, bounds).verdict == REFUTED
     return bool(enumeration.run_shard(spec, ob, bounds).failures)
 
 
@@ -248,10 +310,16 @@ def annotate(spec: Spec, verdicts: Sequence[Verdict], obligations: dict[str, Obl
         ce = v.counterexample
         ob = obligations.get(v.name)
         if v.verdict != REFUTED or ce is None or ob is None \
-                or not isinstance(ob.formula, Atom | Implies):
+                or not isinstance(ob.formula, Atom | Implies | Confluent | Terminating):
             continue
         bounds = spec.claim_bounds(ob.claim, command_line)
-        found: dict[str, Any] = {"used": used(spec, ob, ce, bounds)}
+        found: dict[str, Any] = {}
+        if isinstance(ob.formula, Atom | Implies):
+            found["used"], at_redex = used(spec, ob, ce, bounds)
+            if at_redex:
+                found["at_redex"] = at_redex
+        else:
+            found["used"] = used_rewriting(spec, ob, ce)
         least = minimal(spec, ob, bounds)
         if least is not None:
             found["minimal"] = least

@@ -126,6 +126,8 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
         culprits = ce.details.get("culprits") if ce.details else None
         if culprits:  # check --culprits (obligations/analysis/culprits.py)
             out.append(f"  used:     {', '.join(culprits['used']) or 'no rule, no equation'}")
+            if culprits.get("at_redex"):
+                out.append(f"  at redex: {', '.join(culprits['at_redex'])}")
             if "minimal" in culprits:
                 out.append("  minimal:  " + (", ".join(culprits["minimal"]) or
                                              "no rule (the failure lies in the translations)"))

@@ -15,6 +15,7 @@ evidence text; all in one fixture (specials.calc), checked for balance and compi
 
 from __future__ import annotations
 
+import json
 import os
 import re
 import shutil
@@ -191,3 +192,20 @@ def test_typeset_keyword_keeps_constructors_named_like_it(invoke, tmp_path):
     f.write_text('calculus c {\n  names var x\n  sort t M ::= x | typeset(M) "T M" typeset "T\\, M"\n}\n')
     r = invoke("lint", str(f))
     assert r.exit_code == 0, r.output
+
+
+# ---------------------------------------------------------------- notations in the terminal
+
+
+def test_terminal_counterexample_has_notations_json_keeps_abstract(capsys):
+    with pytest.raises(SystemExit):
+        main(["check", str(DEMO / "resugar-v1.calc"), "connection", "--size", "4"])
+    out = capsys.readouterr().out
+    block = out.split("refuted: connection.mono(G)")[1].split("evidence:")[0]
+    assert "    M          = if(tt, x, tt)\n                 if true then x else true\n" in block
+    assert "    N          = x\n    resugar(M)" in block  # a name has no second line
+    with pytest.raises(SystemExit):
+        main(["check", str(DEMO / "resugar-v1.calc"), "connection", "--size", "4", "--json", "-"])
+    report = json.loads(capsys.readouterr().out)
+    mono = next(c for c in report["claims"] if c["name"] == "connection.mono(G)")
+    assert mono["counterexample"]["terms"]["M"] == "if(tt, x, tt)"

@@ -7,8 +7,11 @@ each, which the obligation's formula knows.
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from calcscout.obligations.claims import Obligation, plan
 from calcscout.obligations.engines.evaluate import Evaluator
+from calcscout.obligations.verdict import Verdict
 from calcscout.rules.core.spec import Atom, Bounds, Expr, Implies, Spec
 
 
@@ -40,3 +43,32 @@ def term_calculi(spec: Spec, ob: Obligation) -> dict[str, str]:
         expr(a.left)
         expr(a.right)
     return out
+
+
+def notation_printer(spec: Spec) -> Callable[[Verdict, str, str], str | None]:
+    """For the terminal report: a counterexample's term (kept in abstract form) printed with
+    its calculus's notations, or None where the key is not a term of a known calculus."""
+    from calcscout.rules.core.errors import CalcError
+    from calcscout.rules.notation.notation import parse_term, print_term
+
+    obligations = obligations_by_name(spec)
+    calculi: dict[str, dict[str, str]] = {}
+
+    def show(v: Verdict, key: str, text: str) -> str | None:
+        ob = obligations.get(v.name.split(".by(")[0])  # a --by-rule part: its obligation
+        if ob is None:
+            return None
+        if ob.name not in calculi:
+            rewriting = getattr(ob.formula, "calculus", None) if not isinstance(
+                ob.formula, Atom | Implies) else None
+            calculi[ob.name] = ({k: rewriting for k in ("term", "left", "right")}
+                                if isinstance(rewriting, str) else term_calculi(spec, ob))
+        calc = calculi[ob.name].get(key)
+        if calc is None or calc not in spec.calculi:
+            return None
+        try:
+            return print_term(spec.calculi[calc], parse_term(spec.calculi[calc], text))
+        except CalcError:
+            return None
+
+    return show

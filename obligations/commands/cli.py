@@ -292,7 +292,9 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         write_atomically(junit_path, junit_report(spec.file, verdicts), spec.files)
     if json_path != "-":
         out = sys.stdout
-        out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
+        from calcscout.obligations.analysis.keys import notation_printer
+
+        out.write(text_report(spec.file, verdicts, use_colour(out), quiet, notation_printer(spec)))
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
 
 

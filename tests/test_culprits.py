@@ -173,3 +173,15 @@ def test_spec_is_unchanged_by_the_analysis():
     ob = obligations_by_name(spec)["connection.mono(G)"]
     minimal(spec, ob, spec.claim_bounds(ob.claim, Bounds(size=4)))
     assert [r.name for r in spec.calculi["core"].rules] == before
+
+
+def test_a_refuted_normalize_part_gets_no_culprits(capsys):
+    """A ``normalize(T)`` part is refuted by its translation's normal forms, not by a claim's
+    rules: it must not be taken for a ``terminating`` claim and searched over."""
+    code, report = _json(capsys, str(DATA / "engine" / "basics.calc"), "forked", "plus_step",
+                         "--culprits")
+    c = _claims(report)
+    part = c["forked.normalize(into_fork)"]
+    assert part["verdict"] == "refuted"
+    assert "culprits" not in (part["counterexample"] or {}).get("details", {})
+    assert code in (1, 3)

@@ -187,13 +187,17 @@ class Typesetter:
         self.calc = calc
         self.reading: _Reading = _reading(calc)
         self.notation: dict[str, Notation] = {}
-        # The notation the text printer uses for each constructor (the first usable one).
+        # The notation behind the form the text printer uses for each constructor.
         for sort in sorted(calc.sorts.values(), key=lambda s: s.is_context):
             if sort.is_context:
                 continue
             for alt in sort.alts:
-                if isinstance(alt, AltCon) and alt.notation is not None \
-                        and alt.con not in self.notation and _form_of(alt, alt.notation):
+                if not isinstance(alt, AltCon) or alt.notation is None \
+                        or alt.con in self.notation:
+                    continue
+                form = _form_of(alt, alt.notation)
+                printed = self.reading.printed.get(alt.con)
+                if form is not None and printed is not None and form.items == printed.items:
                     self.notation[alt.con] = alt.notation
 
     # ------------------------------------------------------------ terms

@@ -209,3 +209,20 @@ def test_terminal_counterexample_has_notations_json_keeps_abstract(capsys):
     report = json.loads(capsys.readouterr().out)
     mono = next(c for c in report["claims"] if c["name"] == "connection.mono(G)")
     assert mono["counterexample"]["terms"]["M"] == "if(tt, x, tt)"
+
+
+def test_latex_culprits_go_under_the_counterexample(invoke, at_root, tmp_path):
+    text = _write(invoke, DEMO / "resugar-v1.calc", tmp_path / "c.tex", "connection",
+                  "--culprits", "--size", "4")
+    _balanced(text)
+    block = text.split(r"\subsection*{Counterexample to \texttt{connection.mono(G)}}")[1]
+    block = block.split(r"\subsection*")[0]
+    assert "Equations that translated the redex of the premise's step: " \
+        "resugar: resugar(if(M, N, P))." in block
+    assert r"A minimal set of rules that keeps the claim refuted: core.if\_t." in block
+
+
+def test_long_sorts_go_on_over_several_lines():
+    text = (GOLDEN / "resugar-v1.tex").read_text()
+    # surface's expr has five alternatives: four on the first line, the fifth below
+    assert "\\\\\n  &\\phantom{::=} \\mid \\mathsf{let}\\ x\\ \\texttt{=}\\ E\\ \\mathsf{in}\\ F" in text

@@ -259,6 +259,8 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
     from calcscout.obligations.runner import RunOptions, run_claims
     from calcscout.obligations.verdict import exit_code
 
+    if (culprits or by_rule) and shard:
+        raise UsageError("--culprits and --by-rule take the whole run, not a --shard")
     spec = load(file)
     _check_outputs(spec.files, json_path, junit_path)
     sources = _sources(spec) if shard else None  # the contents this run reads, for merge
@@ -278,8 +280,6 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
     finally:
         progress.clear()
     if culprits or by_rule:
-        if shard:
-            raise UsageError("--culprits and --by-rule take the whole run, not a --shard")
         from calcscout.obligations.analysis.explain_failure import analyse
 
         verdicts = analyse(spec, verdicts, opts.bounds, culprits, by_rule)
@@ -338,7 +338,10 @@ def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, parti
 @steps_option
 @names_option
 @nodes_option
-def latex(file: str, items: tuple[str, ...], output: str, size, steps, names, nodes) -> None:
+@click.option("--culprits", is_flag=True,
+              help="Add under each counterexample the rules and equations it needs (as check).")
+def latex(file: str, items: tuple[str, ...], output: str, size, steps, names, nodes,
+          culprits: bool) -> None:
     """Write a LaTeX document: grammars, rules, equations, and the claims' counterexamples.
 
     An ITEM names a calculus, translation or claim to include (none: everything);
@@ -363,6 +366,10 @@ def latex(file: str, items: tuple[str, ...], output: str, size, steps, names, no
         claims = [c for c in claims if c.name in items]
     opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes))
     verdicts, _ = run_claims(spec, claims, opts) if claims else ([], {})
+    if culprits:
+        from calcscout.obligations.analysis.explain_failure import analyse
+
+        verdicts = analyse(spec, verdicts, opts.bounds, True, False)
     write_atomically(output, latex_document(spec, calculi, translations, verdicts), spec.files)
     click.echo(f"wrote {output}: {len(calculi)} calculi, {len(translations)} translation(s), "
                f"{len(claims)} claim(s)")

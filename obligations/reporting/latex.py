@@ -123,7 +123,12 @@ def _bnf_line(calc: Calculus, ts: Typesetter, sort: Sort) -> str:
             alts.append(ts.pattern(PCon(alt.con, tuple(args))))
     metas = ", ".join(ident(m) for m in sort.metas)
     left = f"{_sort_name(sort.name)} \\ni {metas}" if metas else _sort_name(sort.name)
-    return f"{left} &::= " + r" \mid ".join(alts)
+    # a long sort goes on over several lines, ALTS_PER_LINE alternatives each
+    rows = [r" \mid ".join(alts[i:i + ALTS_PER_LINE]) for i in range(0, len(alts), ALTS_PER_LINE)]
+    return f"{left} &::= " + " \\\\\n  &\\phantom{::=} \\mid ".join(rows)
+
+
+ALTS_PER_LINE = 4
 
 
 def _rule_line(ts: Typesetter, r: Rule) -> str:
@@ -233,6 +238,10 @@ def _counterexample_lines(spec: Spec, v: Verdict, ob) -> list[str]:
         used = ", ".join(culprits.get("used", [])) or "none"
         out.append("Rules and equations the evidence uses: " + escape_text(used) + ".")
         out.append("")
+        if culprits.get("at_redex"):
+            out.append("Equations that translated the redex of the premise's step: "
+                       + escape_text(", ".join(culprits["at_redex"])) + ".")
+            out.append("")
         if "minimal" in culprits:
             minimal = ", ".join(culprits["minimal"]) or "none"
             out.append("A minimal set of rules that keeps the claim refuted: "

@@ -150,16 +150,28 @@ def test_escape_text_every_special():
     assert ident("x1'") == "x_{1}'" and ident("foo") == r"\mathit{foo}"
 
 
-@pytest.mark.skipif(shutil.which("pdflatex") is None, reason="pdflatex is not installed")
-@pytest.mark.parametrize("source", [DEMO / "resugar-v1.calc", DATA / "latex" / "specials.calc"],
-                         ids=lambda p: p.stem)
-def test_compiles_with_pdflatex(invoke, tmp_path, source):
-    out = tmp_path / "doc.tex"
-    _write(invoke, source, out, "--size", "4")
+NO_PDFLATEX = pytest.mark.skipif(shutil.which("pdflatex") is None,
+                                 reason="pdflatex is not installed")
+
+
+def _pdflatex(folder: Path) -> None:
     run = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "doc.tex"],
-                         cwd=tmp_path, capture_output=True, text=True, timeout=120)
+                         cwd=folder, capture_output=True, text=True, timeout=120)
     assert run.returncode == 0, run.stdout[-2000:]
-    assert (tmp_path / "doc.pdf").stat().st_size > 0
+    assert (folder / "doc.pdf").stat().st_size > 0
+
+
+@NO_PDFLATEX
+def test_special_characters_compile_with_pdflatex(invoke, tmp_path):
+    _write(invoke, DATA / "latex" / "specials.calc", tmp_path / "doc.tex", "--size", "4")
+    _pdflatex(tmp_path)
+
+
+@NO_PDFLATEX
+@pytest.mark.parametrize("source", EXAMPLES, ids=lambda p: p.stem)
+def test_golden_files_compile_with_pdflatex(tmp_path, source):
+    shutil.copy(GOLDEN / f"{source.stem}.tex", tmp_path / "doc.tex")
+    _pdflatex(tmp_path)
 
 
 # ---------------------------------------------------------------- the typeset form

@@ -18,6 +18,7 @@ from conftest import DATA, DEMO, load_spec
 from calcscout.obligations.analysis.culprits import (
     ddmin,
     minimal,
+    restrict,
     still_refuted,
     with_rules,
 )
@@ -85,11 +86,11 @@ def test_minimal_set_is_one_minimal_and_refutes():
     assert least == ["core.if_t"]
     core = spec.calculi["core"]
     keep = [r for r in core.rules if f"core.{r.name}" in least]
-    assert still_refuted(with_rules(spec, "core", keep), ob, b)
+    assert still_refuted(*restrict(spec, ob, keep), b)
     for r in keep:
-        assert not still_refuted(with_rules(spec, "core", [x for x in keep if x is not r]), ob, b)
-    # and the whole calculus without its if rules: the claim holds (only beta is left)
-    assert not still_refuted(with_rules(spec, "core", [core.rules[0]]), ob, b)
+        assert not still_refuted(*restrict(spec, ob, [x for x in keep if x is not r]), b)
+    # and the premise without its if rules: the claim holds (only beta is left)
+    assert not still_refuted(*restrict(spec, ob, [core.rules[0]]), b)
 
 
 def test_fixed_variant_has_nothing_to_blame(capsys):
@@ -185,3 +186,15 @@ def test_a_refuted_normalize_part_gets_no_culprits(capsys):
     assert part["verdict"] == "refuted"
     assert "culprits" not in (part["counterexample"] or {}).get("details", {})
     assert code in (1, 3)
+
+
+def test_minimal_restricts_the_premise_side_only():
+    """With the conclusion keeping every rule, the one irreversible rule is blamed; dropping
+    rules from the whole calculus would blame b (whose step e undoes) instead."""
+    spec = load_file(str(DATA / "culprits" / "premise-side.calc"))
+    ob = obligations_by_name(spec)["undo"]
+    b = spec.claim_bounds(ob.claim)
+    assert minimal(spec, ob, b) == ["side.d"]
+    rules = {r.name: r for r in spec.calculi["side"].rules}
+    assert not still_refuted(*restrict(spec, ob, [rules["b"]]), b)
+    assert still_refuted(with_rules(spec, "side", [rules["b"]]), ob, b)  # the whole-calculus way

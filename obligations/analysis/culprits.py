@@ -15,17 +15,18 @@ Two answers, both about one refuted relational obligation:
   translated the redex of the premise's step.  A smallest counterexample has
   little else in it, so these are the first suspects: in a ``mono`` part they
   are the equations whose result the step does not carry over.
-- **minimal**: a 1-minimal set of rules of the *premise's calculus* (for a
-  claim without premise: of the calculus of its relation) such that the
-  calculus with only these rules still refutes the claim within the same
-  bounds, found by delta debugging (Zeller and Hildebrandt, "Simplifying and
-  isolating failure-inducing input", IEEE TSE 2002) over the calculus's rule
-  list.  "1-minimal": dropping any one rule of the set repairs the claim
-  within the bounds; a smaller set of other rules may exist.  Dropping rules
-  changes that calculus everywhere in the claim (premise, conclusion and
-  normalising translations alike).  An empty set means the failure needs no
-  rule of that calculus at all: it lies in the translations (see *used*).
-  A claim with ``==`` only has no such calculus and gets no minimal set.
+- **minimal**: a 1-minimal set of rules such that keeping only them still
+  refutes the claim within the same bounds, found by delta debugging (Zeller
+  and Hildebrandt, "Simplifying and isolating failure-inducing input", IEEE
+  TSE 2002) over a rule list.  For ``M -> N implies ...`` the list is the
+  premise's rules and only the premise's step is restricted (the conclusion
+  keeps every rule, so a rule the conclusion needs is never blamed for its
+  absence); for a claim without premise, and for ``confluent`` and
+  ``terminating``, it is the rules of the relation's calculus, dropped from
+  the whole calculus.  "1-minimal": dropping any one rule of the set repairs
+  the claim within the bounds; a smaller set of other rules may exist.  An
+  empty set means the failure needs no rule at all: it lies in the
+  translations (see *used*).  A claim with ``==`` only gets no minimal set.
 """
 
 from __future__ import annotations
@@ -278,6 +279,30 @@ def with_rules(spec: Spec, calc: str, rules: Sequence[Rule]) -> Spec:
     return dataclasses.replace(spec, calculi={**spec.calculi, calc: new})
 
 
+KEPT = "culprits(kept)"  # a group no rule file can name
+
+
+def restrict(spec: Spec, ob: Obligation, rules: Sequence[Rule]) -> tuple[Spec, Obligation]:
+    """The claim with only ``rules`` of the culprit calculus: on the premise side only for
+    ``M -> N implies ...`` (the premise steps by these rules, the conclusion keeps every
+    rule), in the whole calculus otherwise."""
+    f = ob.formula
+    if not isinstance(f, Implies):
+        name = culprit_calculus(ob)
+        assert name is not None
+        return with_rules(spec, name, rules), ob
+    rel = f.premise.relation
+    assert rel is not None and rel.calculus is not None
+    calc = spec.calculi[rel.calculus]
+    keep = {r.name for r in rules}
+    tagged = tuple(dataclasses.replace(r, groups=(*r.groups, KEPT)) if r.name in keep else r
+                   for r in calc.rules)
+    spec2 = dataclasses.replace(spec, calculi={**spec.calculi,
+                                               calc.name: dataclasses.replace(calc, rules=tagged)})
+    premise = dataclasses.replace(f.premise, relation=dataclasses.replace(rel, group=KEPT))
+    return spec2, dataclasses.replace(ob, formula=Implies(premise, f.conclusion, f.pos))
+
+
 def still_refuted(spec: Spec, ob: Obligation, bounds: Bounds) -> bool:
     """Whether the bounded check of ``ob`` (by the engine that decides it) finds a failure."""
     if isinstance(ob.formula, Confluent | Terminating):
@@ -295,8 +320,10 @@ def minimal(spec: Spec, ob: Obligation, bounds: Bounds) -> list[str] | None:
     if name is None:
         return None
     calc = spec.calculi[name]
-    keep = ddmin(list(calc.rules),
-                 lambda rules: still_refuted(with_rules(spec, name, rules), ob, bounds))
+    f = ob.formula
+    group = f.premise.relation.group if isinstance(f, Implies) and f.premise.relation else None
+    keep = ddmin(list(calc.rules_of(group)),
+                 lambda rules: still_refuted(*restrict(spec, ob, rules), bounds))
     return [rule_label(calc, r.name) for r in keep]
 
 

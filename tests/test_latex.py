@@ -238,3 +238,13 @@ def test_long_sorts_go_on_over_several_lines():
     text = (GOLDEN / "resugar-v1.tex").read_text()
     # surface's expr has five alternatives: four on the first line, the fifth below
     assert "\\\\\n  &\\phantom{::=} \\mid \\mathsf{let}\\ x\\ \\texttt{=}\\ E\\ \\mathsf{in}\\ F" in text
+
+
+def test_rewriting_counterexamples_are_terms_too(invoke, tmp_path):
+    """``confluent``/``terminating`` counterexamples (``term``, ``left``, ``right``,
+    ``cycle``) are read back in their calculus; a cycle is a chain of steps."""
+    text = _write(invoke, DATA / "culprits" / "toyama.calc", tmp_path / "t.tex", "union_stops")
+    _balanced(text)
+    assert (r"\mathit{term} &= \mathsf{f}(\mathsf{a}, \mathsf{b}, \mathsf{g}(\mathsf{a}, "
+            r"\mathsf{b}))") in text
+    assert r"\mathsf{b})) \longrightarrow \mathsf{f}(\mathsf{g}(" in text

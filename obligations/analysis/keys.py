@@ -12,7 +12,7 @@ from collections.abc import Callable
 from calcscout.obligations.claims import Obligation, plan
 from calcscout.obligations.engines.evaluate import Evaluator
 from calcscout.obligations.verdict import Verdict
-from calcscout.rules.core.spec import Atom, Bounds, Expr, Implies, Spec
+from calcscout.rules.core.spec import Atom, Bounds, Confluent, Expr, Implies, Spec, Terminating
 
 
 def obligations_by_name(spec: Spec) -> dict[str, Obligation]:
@@ -25,7 +25,10 @@ def obligations_by_name(spec: Spec) -> dict[str, Obligation]:
 
 
 def term_calculi(spec: Spec, ob: Obligation) -> dict[str, str]:
-    """Counterexample key -> calculus, for every expression of a relational obligation."""
+    """Counterexample key -> calculus, for every expression of a relational obligation (for
+    ``confluent`` and ``terminating``: their keys ``term``, ``left``, ``right``, ``cycle``)."""
+    if isinstance(ob.formula, Confluent | Terminating) and ob.normalizes is None:
+        return {k: ob.formula.calculus for k in ("term", "left", "right", "cycle")}
     ev = Evaluator(spec, Bounds())
     out: dict[str, str] = {}
 
@@ -59,10 +62,7 @@ def notation_printer(spec: Spec) -> Callable[[Verdict, str, str], str | None]:
         if ob is None:
             return None
         if ob.name not in calculi:
-            rewriting = getattr(ob.formula, "calculus", None) if not isinstance(
-                ob.formula, Atom | Implies) else None
-            calculi[ob.name] = ({k: rewriting for k in ("term", "left", "right")}
-                                if isinstance(rewriting, str) else term_calculi(spec, ob))
+            calculi[ob.name] = term_calculi(spec, ob)
         calc = calculi[ob.name].get(key)
         if calc is None or calc not in spec.calculi:
             return None

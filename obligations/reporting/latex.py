@@ -227,7 +227,8 @@ def _counterexample_lines(spec: Spec, v: Verdict, ob) -> list[str]:
            r"\begin{align*}"]
     rows = []
     for key, val in ce.terms.items():
-        rows.append(f"{_key(spec, key, calc_of)} &= {_value(spec, val, calc_of.get(key))}")
+        rows.append(f"{_key(spec, key, calc_of)} &= "
+                    f"{_value(spec, val, calc_of.get(key), key == 'cycle')}")
     out.append(" \\\\\n".join(rows) if rows else r"\text{(no terms)}")
     out.append(r"\end{align*}")
     if ce.evidence:
@@ -264,9 +265,10 @@ def _key(spec: Spec, key: str, calc_of: dict[str, str]) -> str:
     return r"\text{" + escape_text(key) + "}"
 
 
-def _value(spec: Spec, val, calc: str | None) -> str:
-    if isinstance(val, list):
-        return r",\ ".join(_value(spec, x, calc) for x in val)
+def _value(spec: Spec, val, calc: str | None, steps: bool = False) -> str:
+    if isinstance(val, list):  # a cycle's terms are steps; other lists are lists
+        return (r" \longrightarrow " if steps else r",\ ").join(_value(spec, x, calc)
+                                                                 for x in val)
     text = str(val)
     if calc is not None and calc in spec.calculi:
         try:

@@ -198,3 +198,16 @@ def test_minimal_restricts_the_premise_side_only():
     rules = {r.name: r for r in spec.calculi["side"].rules}
     assert not still_refuted(*restrict(spec, ob, [rules["b"]]), b)
     assert still_refuted(with_rules(spec, "side", [rules["b"]]), ob, b)  # the whole-calculus way
+
+
+def test_explain_shows_saved_culprits(capsys, tmp_path):
+    """The culprits travel in the JSON report, so ``explain`` prints them again."""
+    saved = tmp_path / "r.json"
+    with pytest.raises(SystemExit):
+        main(["check", V1, "connection", "--culprits", "--size", "4", "--json", str(saved)])
+    capsys.readouterr()
+    with pytest.raises(SystemExit) as info:
+        main(["explain", str(saved), "connection.mono(G)"])
+    out = capsys.readouterr().out
+    assert info.value.code in (0, 1)
+    assert f"  at redex: {SLIP}\n" in out and "  minimal:  core.if_t\n" in out

@@ -239,9 +239,14 @@ def _shard_option(ctx, param, value):
 @click.option("--all", "collect_all", is_flag=True,
               help="Keep going after the first counterexample (up to 10 per claim).")
 @click.option("--quiet", is_flag=True, help="List only the claims that do not hold.")
+@click.option("--culprits", is_flag=True,
+              help="Name the rules and equations each counterexample needs (several checks more).")
+@click.option("--by-rule", "by_rule", is_flag=True,
+              help="Split each `M -> N implies ...` into one part per rule of the premise's step.")
 def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
-          shard, collect_all: bool, quiet: bool) -> None:
+          shard, collect_all: bool, quiet: bool, culprits: bool = False,
+          by_rule: bool = False) -> None:
     """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
     from calcscout.obligations.reporting.report import (
         dumps,
@@ -254,6 +259,8 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
     from calcscout.obligations.runner import RunOptions, run_claims
     from calcscout.obligations.verdict import exit_code
 
+    if (culprits or by_rule) and shard:
+        raise UsageError("--culprits and --by-rule take the whole run, not a --shard")
     spec = load(file)
     _check_outputs(spec.files, json_path, junit_path)
     sources = _sources(spec) if shard else None  # the contents this run reads, for merge
@@ -272,6 +279,10 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         verdicts, partials = run_claims(spec, chosen, opts)
     finally:
         progress.clear()
+    if culprits or by_rule:
+        from calcscout.obligations.analysis.explain_failure import analyse
+
+        verdicts = analyse(spec, verdicts, opts.bounds, culprits, by_rule)
     extra = (_shard_fields(sources, shard, engine, timeout, collect_all, partials) if shard
              else None)
     report = json_report(spec.file, verdicts, extra)
@@ -281,7 +292,9 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         write_atomically(junit_path, junit_report(spec.file, verdicts), spec.files)
     if json_path != "-":
         out = sys.stdout
-        out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
+        from calcscout.obligations.analysis.keys import notation_printer
+
+        out.write(text_report(spec.file, verdicts, use_colour(out), quiet, notation_printer(spec)))
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
 
 
@@ -312,6 +325,54 @@ def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, parti
     (the same rule file contents, claims, bounds, engine, shard count) from others."""
     return {"shard": list(shard), "sources": sources, "engine": engine, "timeout": timeout,
             "all": collect_all, "records": partials}
+
+
+# ---------------------------------------------------------------- latex
+
+
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("items", nargs=-1)
+@click.option("-o", "output", required=True, metavar="PATH.tex", help="Where to write the document.")
+@size_option
+@steps_option
+@names_option
+@nodes_option
+@click.option("--culprits", is_flag=True,
+              help="Add under each counterexample the rules and equations it needs (as check).")
+def latex(file: str, items: tuple[str, ...], output: str, size, steps, names, nodes,
+          culprits: bool) -> None:
+    """Write a LaTeX document: grammars, rules, equations, and the claims' counterexamples.
+
+    An ITEM names a calculus, translation or claim to include (none: everything);
+    the claims included are checked as `check` would.
+    """
+    from calcscout.obligations.reporting.latex import latex_document
+    from calcscout.obligations.reporting.report import write_atomically
+    from calcscout.obligations.runner import RunOptions, run_claims
+
+    spec = load(file)
+    _check_outputs(spec.files, output)
+    calculi, translations, claims = list(spec.calculi), list(spec.translations), list(spec.claims)
+    if items:
+        by_claim = {c.name: c for c in spec.claims}
+        for it in items:
+            if it not in spec.calculi and it not in spec.translations and it not in by_claim:
+                known = ", ".join([*spec.calculi, *spec.translations, *by_claim]) or "none"
+                raise UsageError(f"no calculus, translation or claim {it} in {spec.file}",
+                                 hint=f"items: {known}")
+        calculi = [c for c in calculi if c in items]
+        translations = [t for t in translations if t in items]
+        claims = [c for c in claims if c.name in items]
+    opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes))
+    verdicts, _ = run_claims(spec, claims, opts) if claims else ([], {})
+    if culprits:
+        from calcscout.obligations.analysis.explain_failure import analyse
+
+        verdicts = analyse(spec, verdicts, opts.bounds, True, False)
+    write_atomically(output, latex_document(spec, calculi, translations, verdicts), spec.files)
+    click.echo(f"wrote {output}: {len(calculi)} calculi, {len(translations)} translation(s), "
+               f"{len(claims)} claim(s)")
 
 
 # ---------------------------------------------------------------- reduce

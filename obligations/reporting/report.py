@@ -13,7 +13,7 @@ import os
 import stat
 import sys
 import tempfile
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
@@ -39,7 +39,7 @@ def _paint(text: str, code: str, colour: bool) -> str:
 
 
 def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = False,
-                quiet: bool = False) -> str:
+                quiet: bool = False, show: ShowTerm | None = None) -> str:
     lines: list[str] = []
     width = max((len(v.name) for v in verdicts), default=4)
     width = min(max(width, 4), 40)
@@ -57,7 +57,7 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
                     or v.part_of is not None or not _has_parts(v, verdicts))]
     for v in details:
         lines.append("")
-        lines.extend(evidence_lines(v, colour))
+        lines.extend(evidence_lines(v, colour, show))
     counts = {k: sum(1 for v in verdicts if v.verdict == k and not v.part_of)
               for k in (HOLDS, REFUTED, INCONCLUSIVE, "error")}
     summary = ", ".join(f"{n} {word}" for word, n in
@@ -96,8 +96,13 @@ def _summary(v: Verdict) -> str:
     return v.reason or ""
 
 
-def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
-    """A claim's evidence as the terminal shows it (also used by ``explain``)."""
+# (verdict, counterexample key, abstract form) -> the term with notations, or None
+ShowTerm = Callable[[Verdict, str, str], str | None]
+
+
+def evidence_lines(v: Verdict, colour: bool = False, show: ShowTerm | None = None) -> list[str]:
+    """A claim's evidence as the terminal shows it (also used by ``explain``); ``show``
+    adds under a term its form with notations, where that differs."""
     head = _paint(f"{v.verdict}: {v.name}", COLOURS.get(v.verdict, "0"), colour)
     out = [f"{head}  ({v.file})"]
     out.append(f"  formula:  {v.formula}")
@@ -117,12 +122,23 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
                                                       else ", ".join(val)))
             else:
                 out.append(f"    {k:<{keyw}} = {val}")
+                pretty = show(v, k, val) if show is not None else None
+                if pretty is not None and pretty != val:
+                    out.append(f"    {'':<{keyw}}   {pretty}")
         if ce.evidence:
             out.append(f"  evidence: {ce.evidence}")
         graph = ce.details.get("graph") if ce.details else None
         if graph:
             state = "complete" if graph.get("complete") else f"cut by {graph.get('cut_by')}"
             out.append(f"  graph:    {graph.get('nodes')} term(s) from {graph.get('root')}, {state}")
+        culprits = ce.details.get("culprits") if ce.details else None
+        if culprits:  # check --culprits (obligations/analysis/culprits.py)
+            out.append(f"  used:     {', '.join(culprits['used']) or 'no rule, no equation'}")
+            if culprits.get("at_redex"):
+                out.append(f"  at redex: {', '.join(culprits['at_redex'])}")
+            if "minimal" in culprits:
+                out.append("  minimal:  " + (", ".join(culprits["minimal"]) or
+                                             "no rule (the failure lies in the translations)"))
     ex = v.undecided_example
     if ex is not None:
         out.append("  smallest undecided case" + (f" (size {ex.size}):" if ex.size else ":"))

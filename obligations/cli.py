@@ -177,32 +177,10 @@ def translate(file: str, function: str, term: str, args: tuple[str, ...], steps:
 # ---------------------------------------------------------------- check
 
 
-class _ProgressLine:
-    """A one-line progress display on standard error, only on a terminal, only after 1 s."""
-
-    def __init__(self) -> None:
-        import time
-
-        self.clock = time.monotonic
-        self.start = self.clock()
-        self.last = 0.0
-        self.enabled = sys.stderr.isatty()
-        self.shown = False
-
-    def __call__(self, name: str, done: int, total: int) -> None:
-        now = self.clock()
-        if not self.enabled or now - self.start < 1.0 or now - self.last < 0.1:
-            return
-        self.last = now
-        pct = f"{100 * done // total:3d}%" if total else "    "
-        sys.stderr.write(f"\r  checking {name}: {done}/{total} values {pct}\x1b[K")
-        sys.stderr.flush()
-        self.shown = True
-
-    def clear(self) -> None:
-        if self.shown:
-            sys.stderr.write("\r\x1b[K")
-            sys.stderr.flush()
+def _positive_seconds(ctx, param, value):
+    if value is not None and not value > 0:
+        raise click.BadParameter(f"must be more than 0 seconds, not {value}")
+    return value
 
 
 def _shard_option(ctx, param, value):
@@ -238,13 +216,25 @@ def _shard_option(ctx, param, value):
 @click.option("--all", "collect_all", is_flag=True,
               help="Keep going after the first counterexample (up to 10 per claim).")
 @click.option("--quiet", is_flag=True, help="List only the claims that do not hold.")
+@click.option("--time-limit", type=float, default=None, metavar="SECONDS",
+              callback=_positive_seconds,
+              help="Stop after this many seconds, as an interrupted run does: claims not "
+                   "decided by then are inconclusive.")
 def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
-          shard, collect_all: bool, quiet: bool) -> None:
-    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
+          shard, collect_all: bool, quiet: bool, time_limit: float | None) -> None:
+    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first.
+
+    SIGINT (Ctrl-C) or SIGTERM, or the time limit, stops the run: the report
+    keeps the claims decided so far, the others are inconclusive (cut by
+    "interrupted"); the exit status is then 130, 143, or as the verdicts say.
+    """
+    from .progress import ProgressLine
     from .report import dumps, json_report, junit_report, text_report, use_colour, write_atomically
     from .runner import RunOptions, run_claims
+    from .stopping import RunStopped, StopSignals
     from .verdict import exit_code
+    from .workers import usable_cpus
 
     spec = load(file)
     chosen = list(spec.claims)
@@ -255,14 +245,26 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
             raise UsageError(f"no claim {missing[0]} in {spec.file}",
                              hint="claims: " + (", ".join(by_name) or "none"))
         chosen = [by_name[c] for c in claims]
-    progress = _ProgressLine()
+    cpus = usable_cpus()
+    if jobs > cpus:
+        click.echo(f"calcscout: --jobs {jobs} is more than the {cpus} CPU(s) this process may "
+                   f"use; using {cpus}", err=True)
+        jobs = cpus
+    progress = ProgressLine()
+    stop = StopSignals(time_limit)
     opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes), jobs, shard,
-                      collect_all, engine, timeout, progress)
-    try:
-        verdicts, partials = run_claims(spec, chosen, opts)
-    finally:
-        progress.clear()
+                      collect_all, engine, timeout, progress, progress.begin, stop)
+    with stop:
+        try:
+            verdicts, partials = run_claims(spec, chosen, opts)
+        except RunStopped as stopped:  # its report: the claims decided, the others inconclusive
+            assert stopped.verdicts is not None and stopped.records is not None
+            verdicts, partials = stopped.verdicts, stopped.records
+        finally:
+            progress.clear()
     extra = {"shard": list(shard), "records": partials} if shard else None
+    if stop.request is not None:
+        extra = _say_stopped(stop.request, verdicts, extra)
     report = json_report(spec.file, verdicts, extra)
     if json_path is not None:
         write_atomically(json_path, dumps(report))
@@ -271,7 +273,21 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
     if json_path != "-":
         out = sys.stdout
         out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
+    if stop.request is not None and stop.request.status is not None:
+        sys.exit(stop.request.status)
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
+
+
+def _say_stopped(request, verdicts, extra: dict | None) -> dict | None:
+    """Say on standard error that the run was stopped; mark a report it left incomplete
+    (``"stopped"``: ``merge`` refuses a shard that did not do all its work)."""
+    from .stopping import INTERRUPTED
+
+    left = sum(1 for v in verdicts if v.cut_by == INTERRUPTED and not v.part_of)
+    click.echo(f"calcscout: stopped by {request.cause}; "
+               + (f"{left} claim(s) not decided are reported inconclusive" if left
+                  else "every claim was decided"), err=True)
+    return {**(extra or {}), "stopped": request.cause} if left else extra
 
 
 # ---------------------------------------------------------------- reduce

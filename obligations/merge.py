@@ -17,6 +17,10 @@ def merge_reports(paths: list[str]) -> dict[str, Any]:
     if len(sharded) != len(reports):
         plain = next(p for p, r in reports if not r.get("shard"))
         raise UsageError(f"{plain} is not the report of a --shard run; merge combines shards")
+    stopped = next(((p, r["stopped"]) for p, r in reports if r.get("stopped")), None)
+    if stopped is not None:
+        raise UsageError(f"{stopped[0]} is the report of a shard stopped by {stopped[1]} before it "
+                         "finished; run that shard again")
     files = {r["file"] for _, r in reports}
     if len(files) != 1:
         raise UsageError("the reports are of different rule files: " + ", ".join(sorted(files)))

@@ -103,7 +103,7 @@ def _collect(w: _Worker, ob: Obligation, done, workers: list[_Worker]) -> None:
         except EOFError:
             kind, value = "lost", None
         if kind == "error":
-            raise value
+            raise value.rebuild()
         if kind == "ok":
             w.result, w.finished = value, True
             return
@@ -189,12 +189,27 @@ def _work(spec: Spec, ob: Obligation, b: Bounds, shard: tuple[int, int], collect
     try:
         msg: tuple[str, Any] = ("ok", bounded.run_shard(spec, ob, b, shard, collect_all, count))
     except Exception as e:  # the parent raises it again, as a one-process run would
-        msg = ("error", e)
+        msg = ("error", _Raised(e))
     try:
         conn.send(msg)
-    except Exception as e:  # an exception that does not pickle
-        conn.send(("error", RuntimeError(f"{type(msg[1]).__name__}: {msg[1]} ({e})")))
+    except Exception as e:  # something in it does not pickle
+        conn.send(("error", _Raised(RuntimeError(f"{type(msg[1]).__name__}: {msg[1]} ({e})"))))
     conn.close()
+
+
+class _Raised:
+    """An exception on its way from a worker to the parent, rebuilt there without calling
+    its ``__init__`` (pickle calls it with ``args`` alone, which fails for an exception whose
+    constructor takes other arguments, such as a translation failure)."""
+
+    def __init__(self, e: Exception) -> None:
+        self.kind, self.args, self.state = type(e), e.args, dict(vars(e))
+
+    def rebuild(self) -> Exception:
+        e = self.kind.__new__(self.kind, *self.args)
+        e.args = self.args
+        vars(e).update(self.state)
+        return e
 
 
 def _die_with_parent(parent: int) -> None:

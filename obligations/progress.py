@@ -103,6 +103,11 @@ def duration_text(seconds: float) -> str:
     return f"{years:,.0f} years" if years < 1e6 else f"{years:.1e} years"
 
 
+def _compact(n: int) -> str:
+    """A count short enough for one terminal line (the notice gives it exactly)."""
+    return f"{n:,}" if n < 10**9 else f"{n:.2g}"
+
+
 class ProgressLine:
     """The notice and the one-line progress display of ``check`` on standard error.
 
@@ -159,7 +164,7 @@ class ProgressLine:
     def text(self, done: int, now: float) -> str:
         c = self.cases
         assert c is not None
-        total = f"{c.total:,}" if c.exact else f"more than {c.total:,}"
+        total = _compact(c.total) if c.exact else f"over {_compact(c.total)}"
         parts = [f"  {self.name}: {done:,} of {total} cases"]
         t0, d0 = self.samples[0]
         rate = (done - d0) / (now - t0) if now > t0 else 0.0

@@ -21,6 +21,7 @@ import ctypes
 import multiprocessing
 import os
 import signal
+import sys
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -73,6 +74,8 @@ def run_shards(spec: Spec, ob: Obligation, b: Bounds, shards: list[tuple[int, in
     ctx = multiprocessing.get_context("fork")
     done = ctx.RawArray("q", len(shards))  # cases decided, one slot per worker (its own writes)
     workers: list[_Worker] = []
+    for stream in (sys.stdout, sys.stderr):  # or a child would write the parent's buffer again
+        stream.flush()
     try:
         with _signals_blocked():  # a signal between fork and the worker's own handlers
             for slot, shard in enumerate(shards):

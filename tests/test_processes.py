@@ -410,3 +410,20 @@ def test_progress_line_shows_decided_rate_size_and_time_left() -> None:
     line.begin("d", big)
     assert "calcscout: d: 3,000,000 cases up to size 3\n" in out.getvalue()
     assert duration_text(3 * 3600) == "3.0 h" and duration_text(1e18).endswith("e+10 years")
+
+
+def test_an_unfinished_claim_has_the_entries_of_a_finished_one() -> None:
+    """A stopped claim is reported with the same entries, in the same order, as when it is
+    decided (its own, its shorthand parts, its normalize parts), so that a report consumer
+    finds every name it expects."""
+    from obligations.runner import RunOptions, claim_records, finish_claim, unfinished_verdicts
+    from rules.spec import Bounds
+
+    for path in (BASICS, str(ROOT / "rules" / "library" / "plotkin-cps.calc")):
+        spec = load_file(path)
+        opts = RunOptions(bounds=Bounds(size=3, steps=4, nodes=200))
+        for claim in spec.claims:
+            decided = finish_claim(claim_records(spec, claim, opts))
+            stopped = unfinished_verdicts(spec, claim, opts, "stopped")
+            assert [(v.name, v.part_of) for v in stopped] == [(v.name, v.part_of) for v in decided]
+            assert {(v.verdict, v.cut_by) for v in stopped} == {("inconclusive", "interrupted")}

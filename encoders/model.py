@@ -10,14 +10,15 @@ file edited by hand, a model of another file) is said to be one.
 from __future__ import annotations
 
 import re
+from collections.abc import Callable, Sequence
 
 import z3
 
-from rules.errors import CalcError, UsageError
-from rules.spec import Bounds
-
-from .smtlib import obligation_query, read_header
-from .symbolic import evaluate, to_term
+from calcscout.encoders.smtlib import obligation_query, read_header
+from calcscout.encoders.symbolic import evaluate, to_term
+from calcscout.rules.core.errors import CalcError, UsageError
+from calcscout.rules.core.spec import Bounds, Claim, Spec
+from calcscout.rules.loading.files import read_text
 
 
 def parse_sexprs(text: str, where: str) -> list:
@@ -41,27 +42,21 @@ def parse_sexprs(text: str, where: str) -> list:
 
 def read_model(path: str) -> tuple[str, dict[str, int | bool]]:
     """The solver's answer (``sat``, ``unsat``, ``unknown``) and its model's values."""
-    try:
-        with open(path, encoding="utf-8") as f:
-            text = f.read()
-    except OSError as e:
-        raise UsageError(f"cannot read {path}: {e.strerror}") from None
+    text = read_text(path, what="solver output")
     items = parse_sexprs(text, path)
     answer = next((x for x in items if isinstance(x, str)), None)
     if answer not in ("sat", "unsat", "unknown"):
         raise UsageError(f"{path} does not start with a solver's answer (sat, unsat or unknown)")
     values: dict[str, int | bool] = {}
 
-    def walk(x) -> None:
+    todo = list(reversed(items))  # a loop, not recursion: the output may be nested deep
+    while todo:
+        x = todo.pop()
         if isinstance(x, list):
             if len(x) == 5 and x[0] == "define-fun" and x[2] == []:
                 values[x[1].strip("|")] = _value(x[4], x[3], path)
-                return
-            for y in x:
-                walk(y)
-
-    for x in items:
-        walk(x)
+                continue
+            todo.extend(reversed(x))
     return answer, values
 
 
@@ -69,6 +64,10 @@ def _value(v, sort, path: str) -> int | bool:
     if sort == "Bool" and v in ("true", "false"):
         return v == "true"
     if sort == "Int":
+        digits = v if isinstance(v, str) else (v[1] if isinstance(v, list) and len(v) == 2
+                                               and v[0] == "-" and isinstance(v[1], str) else "")
+        if len(digits) > 1000:  # no model of a bounded encoding needs such a number
+            raise UsageError(f"{path}: a model value of {len(digits)} digits")
         if isinstance(v, str) and re.fullmatch(r"\d+", v):
             return int(v)
         if isinstance(v, list) and len(v) == 2 and v[0] == "-" and re.fullmatch(r"\d+", v[1]):
@@ -76,12 +75,18 @@ def _value(v, sort, path: str) -> int | bool:
     raise UsageError(f"{path}: a model value {v!r} of sort {sort!r} that calcscout cannot read")
 
 
-def explain_model(solver_output_path: str, smt2_path: str) -> str:
-    """The counterexample a solver's model of an exported file stands for, as text."""
-    from obligations.claims import plan
-    from obligations.smt_engine import _Judge
-    from rules.notation import print_abstract
-    from rules.parse import load_file
+def explain_model(solver_output_path: str, smt2_path: str,
+                  obligations_of: Callable[[Spec, Claim], Sequence], judge_for: Callable) -> str:
+    """The counterexample a solver's model of an exported file stands for, as text.
+
+    The obligations layer passes in what the encoders may not import:
+    ``obligations_of(spec, claim)`` gives a claim's obligations (its own, then its
+    parts), ``judge_for(spec, obligation, bounds)`` the rewriting engine's
+    decision of one case (called on the terms; ``.counterexample(terms)`` for a
+    failing one).
+    """
+    from calcscout.rules.loading.load import load_file
+    from calcscout.rules.notation.notation import print_abstract
 
     try:
         header = read_header(smt2_path)
@@ -109,9 +114,7 @@ def explain_model(solver_output_path: str, smt2_path: str) -> str:
     claim = next((c for c in spec.claims if c.name == header["claim"]), None)
     if claim is None:
         raise UsageError(f"{header['spec']} has no claim {header['claim']} any more")
-    p = plan(spec, claim)
-    ob = next((o for o in ([p.head] if p.head else []) + list(p.parts)
-               if o.name == header["obligation"]), None)
+    ob = next((o for o in obligations_of(spec, claim) if o.name == header["obligation"]), None)
     if ob is None:
         raise UsageError(f"claim {claim.name} has no part {header['obligation']} any more")
     sizes = sorted(int(k[4:]) for k, v in values.items() if re.fullmatch(r"size\d+", k) and v)
@@ -143,7 +146,7 @@ def explain_model(solver_output_path: str, smt2_path: str) -> str:
     model = s.model()
     memo: dict = {}
     terms = {k: to_term(evaluate(sym, model, memo)) for k, sym in env.items()}
-    judge = _Judge(spec, ob, spec.effective_bounds(bounds))
+    judge = judge_for(spec, ob, spec.effective_bounds(bounds))
     verdict = judge(terms)
     lines = [f"{ob.name}: {ob.text}", f"model of size {n}:"]
     if verdict == "fail":

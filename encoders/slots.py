@@ -23,7 +23,7 @@ canonicity of enumeration (first occurrences left to right, which postorder
 keeps); a bound name points at the slot and position of its binder, which
 must be an ancestor whose binding argument contains the leaf.  Binders are
 named after their slot (``#var:s7.0.0``), so the encoded terms are in the
-named world of :mod:`encoders.symbolic`.
+named world of :mod:`calcscout.encoders.symbolic`.
 """
 
 from __future__ import annotations
@@ -32,11 +32,10 @@ from dataclasses import dataclass
 
 import z3
 
-from rules.errors import EncodingError
-from rules.sorts import grammar
-from rules.spec import Calculus
-
-from .symbolic import Store, Sym
+from calcscout.encoders.symbolic import Store, Sym
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import Calculus
 
 
 @dataclass(frozen=True)

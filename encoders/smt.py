@@ -1,8 +1,8 @@
-"""Obligations as bounded solver queries over the node array (:mod:`encoders.slots`).
+"""Obligations as bounded solver queries over the node array (:mod:`calcscout.encoders.slots`).
 
 For total size ``n`` the query asks for quantified terms laid out in slots
 ``0..n-1`` on which the claim fails; the claim's translations are evaluated
-over the symbolic terms in Python (:mod:`encoders.symeval`), so the query is
+over the symbolic terms in Python (:mod:`calcscout.encoders.symeval`), so the query is
 a quantifier-free formula over integers.
 
 Which claims (LANGUAGE.md §6, §8):
@@ -16,19 +16,18 @@ Which claims (LANGUAGE.md §6, §8):
   a case the one-step test accepts is accepted by the real relation too;
 - a premise ``M -> N`` or ``M ->= N`` is a symbolic choice of a redex
   position (a slot) and a rule; ``M ->* N`` and ``M ->+ N`` premises are not
-  encoded (:class:`~rules.errors.EncodingError`).
+  encoded (:class:`~calcscout.rules.core.errors.EncodingError`).
 """
 
 from __future__ import annotations
 
 import z3
 
-from rules.errors import EncodingError
-from rules.spec import Atom, Bounds, Calculus, ECall, EMeta, Expr, Implies, Spec
-
-from .slots import Universe
-from .symbolic import Store, Sym, evaluate, f_and, f_not, f_or, to_term
-from .symeval import SymRules, SymTranslator
+from calcscout.encoders.slots import Universe
+from calcscout.encoders.symbolic import Store, Sym, evaluate, f_and, f_not, f_or, to_term
+from calcscout.encoders.symeval import SymRules, SymTranslator
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Atom, Bounds, Calculus, ECall, EMeta, Expr, Implies, Spec
 
 DECIDED = ("==", "->", "->=")
 CANDIDATE = ("->*", "->+", "joins")
@@ -84,7 +83,7 @@ def _calculus_ok(spec: Spec, calc: Calculus, rules: bool) -> tuple[bool, str]:
         return False, (f"calculus {calc.name} reduces in context {calc.reduce_in}; the SMT "
                        "engine encodes only `reduce anywhere`")
     if rules:
-        from rules.spec import PAbs, PCon, PPlug
+        from calcscout.rules.core.spec import PAbs, PCon, PPlug
 
         def has_plug(p) -> bool:
             if isinstance(p, PPlug):

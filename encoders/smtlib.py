@@ -3,7 +3,7 @@
 A file is the whole bounded query of one obligation in ``QF_LIA``: the node
 array up to the size bound, one literal ``sizeN`` per size whose truth says
 that the claim fails on terms of total size ``N``, and the assertion that
-one of them holds.  Any solver reads it; :func:`encoders.model.explain_model`
+one of them holds.  Any solver reads it; :func:`calcscout.encoders.model.explain_model`
 turns the solver's model back into the counterexample's terms, reading the
 ``; calcscout-...`` lines of the header to rebuild the encoding.
 """
@@ -12,14 +12,14 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Sequence
 from pathlib import Path
 
 import z3
 
-from rules.errors import EncodingError
-from rules.spec import Bounds, Claim, Spec
-
-from .smt import Encoding, encodable
+from calcscout.encoders.smt import Encoding, encodable
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Bounds, Claim, Spec
 
 HEADER_KEYS = ("spec", "claim", "obligation", "bounds", "mode")
 
@@ -47,17 +47,16 @@ def obligation_query(spec: Spec, ob, bounds: Bounds, ctx: z3.Context, upto: int 
     return enc, facts, lits, envs
 
 
-def export_obligations(spec: Spec, claim: Claim, bounds: Bounds, out_dir: str | os.PathLike
-                       ) -> list[Path]:
+def export_obligations(spec: Spec, claim: Claim, obligations: Sequence, bounds: Bounds,
+                       out_dir: str | os.PathLike) -> list[Path]:
     """Write one ``.smt2`` file per encodable obligation of ``claim`` into ``out_dir``.
 
+    ``obligations`` are the claim's obligations as the caller planned them (the
+    claim's own, then its parts; ``normalize(T)`` parts are not encoded).
     ``bounds`` are the effective bounds (size and names matter). Raises
-    :class:`~rules.errors.EncodingError` when no obligation of the claim can be encoded.
+    :class:`~calcscout.rules.core.errors.EncodingError` when no obligation of the claim can be encoded.
     """
-    from obligations.claims import plan
-
-    p = plan(spec, claim)
-    obs = ([p.head] if p.head else []) + [o for o in p.parts if o.normalizes is None]
+    obs = [o for o in obligations if o.normalizes is None]
     out = Path(out_dir)
     written: list[Path] = []
     reasons: list[str] = []
@@ -120,14 +119,15 @@ def _safe(name: str) -> str:
 
 def read_header(path: str | os.PathLike) -> dict[str, str]:
     """The ``; calcscout-KEY: value`` lines of an exported file."""
+    from calcscout.rules.loading.files import read_text  # regular files only, of bounded size
+
     out: dict[str, str] = {}
-    with open(path, encoding="utf-8") as f:
-        for line in f:
-            if not line.startswith(";"):
-                if line.strip() and not line.startswith("("):
-                    break
-                continue
-            m = re.match(r";\s*calcscout-(\w+):\s*(.*)$", line.rstrip("\n"))
-            if m:
-                out[m.group(1)] = m.group(2).strip()
+    for line in read_text(path, what="exported .smt2 file").splitlines(keepends=True):
+        if not line.startswith(";"):
+            if line.strip() and not line.startswith("("):
+                break
+            continue
+        m = re.match(r";\s*calcscout-(\w+):\s*(.*)$", line.rstrip("\n"))
+        if m:
+            out[m.group(1)] = m.group(2).strip()
     return out

@@ -24,9 +24,9 @@ from collections.abc import Iterable, Sequence
 
 import z3
 
-from rules.errors import EncodingError
-from rules.sorts import Grammar, State, grammar
-from rules.spec import Calculus
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.sorts import Grammar, State, grammar
+from calcscout.rules.core.spec import Calculus
 
 Formula = "z3.BoolRef | bool"
 
@@ -440,7 +440,7 @@ def evaluate(t: Sym, model: z3.ModelRef, memo: dict | None = None):
 
 def to_term(value):
     """A value of :func:`evaluate` as an interned locally nameless term."""
-    from rules.terms import close, name, node
+    from calcscout.rules.core.terms import close, name, node
 
     if isinstance(value, str):
         return name(value)

@@ -2,7 +2,7 @@
 
 No recursive function goes to the solver (SMT-NOTES.md): a translation's
 equations are tried in order on a symbolic term exactly as
-:mod:`rules.translate` tries them on a concrete one.  Where a pattern needs
+:mod:`calcscout.rules.rewriting.translate` tries them on a concrete one.  Where a pattern needs
 to see inside a choice, the call is split over the choice's branches; where a
 match depends on a formula (a repeated metavariable), the first-match order
 becomes a choice between this equation and the later ones.  Results are
@@ -13,8 +13,9 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from rules.errors import EncodingError
-from rules.spec import (
+from calcscout.encoders.symbolic import SChoice, SLeaf, SNode, Store, Sym, f_and, f_not, f_or, is_false
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import (
     Calculus,
     PAbs,
     Pattern,
@@ -28,8 +29,6 @@ from rules.spec import (
     Spec,
     Translation,
 )
-
-from .symbolic import SChoice, SLeaf, SNode, Store, Sym, f_and, f_not, f_or, is_false
 
 _FAIL = ("fail",)
 

@@ -1,4 +1,4 @@
-"""Solving an :class:`~encoders.smt.Encoding` in-process, smallest size first.
+"""Solving an :class:`~calcscout.encoders.smt.Encoding` in-process, smallest size first.
 
 One explicit ``z3.Context`` and ``z3.Solver`` per obligation, with a timeout
 per query.  Size ``n`` is one assumption literal ``size_n``: the solver keeps
@@ -17,10 +17,9 @@ from dataclasses import dataclass, field
 
 import z3
 
-from rules.spec import Bounds, EMeta, Spec
-
-from .smt import Encoding
-from .symbolic import Budget
+from calcscout.encoders.smt import Encoding
+from calcscout.encoders.symbolic import Budget
+from calcscout.rules.core.spec import Bounds, EMeta, Spec
 
 #: Candidates a claim may produce before the engine gives up on it.
 CANDIDATE_LIMIT = 200

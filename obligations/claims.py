@@ -19,7 +19,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
-from rules.spec import (
+from calcscout.rules.core.spec import (
     Atom,
     Claim,
     ECall,
@@ -53,6 +53,11 @@ class Plan:
     claim: Claim
     head: Obligation | None  # None for a shorthand (its verdict is the worst of its parts)
     parts: tuple[Obligation, ...]
+
+    @property
+    def obligations(self) -> tuple[Obligation, ...]:
+        """The claim's own obligation (if it has one), then its parts."""
+        return ((self.head,) if self.head else ()) + self.parts
 
 
 def plan(spec: Spec, claim: Claim) -> Plan:

@@ -15,8 +15,8 @@ import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
-from rules.enumerate import _count_specs, _Space
-from rules.spec import Calculus
+from calcscout.rules.core.enumerate import _count_specs, _Space
+from calcscout.rules.core.spec import Calculus
 
 #: an obligation with more cases than this gets a notice line before it starts
 LARGE = 1_000_000

@@ -19,15 +19,14 @@ from contextlib import nullcontext
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.errors import EncodingError
-from rules.spec import Bounds, Claim, Spec
-from rules.translate import TranslationFailure
-
-from . import bounded
-from .claims import Obligation, plan
-from .progress import CaseCount, count_cases
-from .stopping import INTERRUPTED, RunStopped, StopSignals
-from .verdict import HOLDS, INCONCLUSIVE, Verdict, worst
+from calcscout.obligations.claims import Obligation, plan
+from calcscout.obligations.engines import enumeration
+from calcscout.obligations.progress import CaseCount, count_cases
+from calcscout.obligations.stopping import INTERRUPTED, RunStopped, StopSignals
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, Verdict, worst
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Bounds, Claim, Spec
+from calcscout.rules.rewriting.translate import TranslationFailure
 
 
 @dataclass
@@ -109,15 +108,17 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             tr = spec.translations[ob.normalizes]
             obs.append({**base, "kind": "normalize", "translation": tr.name,
                         "group": tr.normalize})
-        elif bounded.is_relational(ob) and _engine(spec, ob, opts) == "smt":
-            from .smt_engine import run_smt
+        elif enumeration.is_relational(ob) and _engine(spec, ob, opts) == "smt":
+            from calcscout.obligations.engines.smt import run_smt
 
             v = run_smt(spec, ob, b, opts.timeout)
             v.seconds = time.perf_counter() - start
-            obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
-        elif bounded.is_relational(ob):
+            obs.append({**base, "kind": "fixed", "verdict": v.to_json(),
+                        "empty": _empty_sorts(spec, ob, b)})
+        elif enumeration.is_relational(ob):
             parts = _run_relational(spec, ob, b, opts)
-            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts]})
+            obs.append({**base, "kind": "relational", "parts": [x.to_json() for x in parts],
+                        "empty": _empty_sorts(spec, ob, b)})
         else:
             if opts.engine == "smt":
                 raise EncodingError(f"claim {claim.name}: {ob.text} is a rewriting question the "
@@ -131,12 +132,22 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             "shard": list(opts.shard) if opts.shard else None}
 
 
+def _empty_sorts(spec: Spec, ob: Obligation, b: Bounds) -> list[str]:
+    """The quantified sorts with no term at all within the bounds (``M in lam.term``), for
+    the warning on a claim that holds without a single case."""
+    from calcscout.rules.core.enumerate import count_terms
+
+    assert b.size is not None and b.names is not None
+    return [f"{m.name} in {m.calculus}.{m.sort}" for m in ob.quantified
+            if count_terms(spec.calculi[m.calculus], m.sort, b.size, b.names) == 0]
+
+
 def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
     """The engine for one relational obligation: enumeration unless smt or auto says otherwise
-    (the rule of auto is in obligations/smt_engine.py)."""
+    (the rule of auto is in obligations/engines/smt.py)."""
     if opts.engine == "enum":
         return "enum"
-    from .smt_engine import choose_engine
+    from calcscout.obligations.engines.smt import choose_engine
 
     return choose_engine(ob, opts.engine, spec)
 
@@ -148,25 +159,31 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
     b = Bounds(**rec["bounds"])
     head_v: Verdict | None = None
     parts_v: list[Verdict] = []
-    relational: list[bounded.Partial] = []
+    relational: list[enumeration.Partial] = []
     for o in rec["obligations"]:
         if o["kind"] != "relational":
             continue
         raw = list(o["parts"]) + list((extra_parts or {}).get(o["name"], []))
-        relational.extend(bounded.Partial.from_json(o["name"], x) for x in raw)
+        relational.extend(enumeration.Partial.from_json(o["name"], x) for x in raw)
     for o in rec["obligations"]:
         if o["kind"] == "relational":
             parts = [x for x in relational if x.name == o["name"]]
-            v = bounded.combine(o["name"], o["file"], o["formula"], b, parts)
+            v = enumeration.combine(o["name"], o["file"], o["formula"], b, parts)
         elif o["kind"] == "normalize":
             cutoffs = {}
             for name in {x.name for x in relational}:
                 mine = [x for x in relational if x.name == name]
-                cutoffs[name] = bounded.first_failure(mine, any(x.collect_all for x in mine))
-            v = bounded.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
+                cutoffs[name] = enumeration.first_failure(mine, any(x.collect_all for x in mine))
+            v = enumeration.normalize_verdict(o["name"], o["file"], o["formula"], o["translation"],
                                           o["group"], b, relational, cutoffs)
         else:
             v = Verdict.from_json(o["verdict"])
+        if "empty" in o and v.verdict == HOLDS and v.scope != "all" and v.tried == 0:
+            # vacuous: "holds" must not read as if anything had been tried
+            empty = o["empty"]
+            why = (f"{', '.join(empty)} {'has' if len(empty) == 1 else 'have'} no term"
+                   if empty else "the quantified metavariables have no values together")
+            v.warning = f"no case at all: {why} up to size {b.size} with {b.names} free name(s)"
         if o["head"]:
             head_v = v
         else:
@@ -189,7 +206,7 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
 
 
 def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions
-                    ) -> list[bounded.Partial]:
+                    ) -> list[enumeration.Partial]:
     progress = None
     if opts.progress is not None or opts.cases is not None:
         slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
@@ -202,12 +219,12 @@ def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions
                 opts.progress(_name, done, _total)  # type: ignore[misc]
 
     if opts.jobs <= 1:
-        return [bounded.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
-    from .workers import run_shards, usable_cpus
+        return [enumeration.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
+    from calcscout.obligations.workers import run_shards, usable_cpus
 
     jobs = min(opts.jobs, usable_cpus())  # more processes than CPUs only cost forks and memory
     if jobs <= 1:
-        return [bounded.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
+        return [enumeration.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
     return run_shards(spec, ob, b, _subshards(opts.shard, jobs), opts.collect_all, progress)
 
 
@@ -218,10 +235,10 @@ def _subshards(shard: tuple[int, int] | None, jobs: int) -> list[tuple[int, int]
 
 
 def _run_rewriting(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions) -> Verdict:
-    from rules.spec import Confluent
+    from calcscout.rules.core.spec import Confluent
 
     try:
-        from . import confluence
+        from calcscout.obligations.engines import confluence
     except ImportError:  # the rewriting decisions are a module of their own
         return Verdict(ob.name, ob.claim.file, ob.text, INCONCLUSIVE, b,
                        reason="confluent and terminating are not decided in this build")

@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from typing import Any
 
-from rules.spec import Bounds
+from calcscout.rules.core.spec import Bounds
 
 HOLDS = "holds"
 REFUTED = "refuted"
@@ -64,6 +64,7 @@ class Verdict:
     notes: list[str] = field(default_factory=list)
     part_of: str | None = None
     undecided_example: Counterexample | None = None  # the smallest undecided case
+    warning: str | None = None  # e.g. "holds" with no case at all: an empty sort
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -82,6 +83,8 @@ class Verdict:
         }
         if self.reason is not None:
             out["reason"] = self.reason
+        if self.warning is not None:
+            out["warning"] = self.warning
         if self.more:
             out["counterexamples"] = [c.to_json() for c in self.more]
         if self.undecided_example is not None:
@@ -109,6 +112,7 @@ class Verdict:
             notes=list(data.get("notes", [])), part_of=data.get("part_of"),
             undecided_example=(Counterexample.from_json(data["undecided_example"])
                                if data.get("undecided_example") else None),
+            warning=data.get("warning"),
         )
 
 

@@ -29,11 +29,10 @@ from dataclasses import dataclass
 from multiprocessing.connection import Connection, wait
 from typing import Any
 
-from rules.errors import CalcError
-from rules.spec import Bounds, Spec
-
-from . import bounded
-from .claims import Obligation
+from calcscout.obligations.claims import Obligation
+from calcscout.obligations.engines import enumeration
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.spec import Bounds, Spec
 
 _SIGNALS = {signal.SIGINT, signal.SIGTERM, signal.SIGALRM}
 _GRACE = 1.0  # seconds a worker has to die of SIGTERM before SIGKILL
@@ -69,7 +68,7 @@ class _Worker:
 
 def run_shards(spec: Spec, ob: Obligation, b: Bounds, shards: list[tuple[int, int]],
                collect_all: bool, progress: Callable[[int], None] | None,
-               poll: float = 0.2) -> list[bounded.Partial]:
+               poll: float = 0.2) -> list[enumeration.Partial]:
     """Each shard's partial, in the order of ``shards``, each computed in its own process."""
     ctx = multiprocessing.get_context("fork")
     done = ctx.RawArray("q", len(shards))  # cases decided, one slot per worker (its own writes)
@@ -190,7 +189,7 @@ def _work(spec: Spec, ob: Obligation, b: Bounds, shard: tuple[int, int], collect
             os._exit(1)
 
     try:
-        msg: tuple[str, Any] = ("ok", bounded.run_shard(spec, ob, b, shard, collect_all, count))
+        msg: tuple[str, Any] = ("ok", enumeration.run_shard(spec, ob, b, shard, collect_all, count))
     except Exception as e:  # the parent raises it again, as a one-process run would
         msg = ("error", _Raised(e))
     try:

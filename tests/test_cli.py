@@ -2,13 +2,14 @@
 
 from __future__ import annotations
 
+import importlib.util
 import json
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
 import pytest
 
-from obligations.cli import main
+from calcscout.obligations.commands.cli import main
 
 DATA = Path(__file__).parent / "data"
 BASICS = str(DATA / "engine" / "basics.calc")
@@ -231,3 +232,57 @@ def test_export_writes_smtlib_files(capsys, tmp_path) -> None:
     assert paths and all(p.suffix == ".smt2" and p.exists() for p in paths)
     text = paths[0].read_text()
     assert "(set-logic" in text and "(check-sat)" in text and "; unsat:" in text
+
+
+def test_a_claim_named_twice_is_checked_once(capsys) -> None:
+    """Family: repeated names on the command line; also checked: the claims keep the
+    order in which they were first named."""
+    code, out, _ = run(capsys, "check", BASICS, "identity", "flip_same", "identity",
+                       "--json", "-")
+    names = [c["name"] for c in json.loads(out)["claims"]]
+    assert code == 1 and names == ["identity", "flip_same"]
+
+
+def test_holds_on_an_empty_sort_says_so(capsys) -> None:
+    """Family: a claim that holds with no case tried (a quantified sort with no term
+    within the bounds, with or without a premise; sorts that are not empty but do not
+    fit together); the verdict line and JSON warn, and a claim with cases has none."""
+    empty = str(DATA / "hostile" / "empty-sort.calc")
+    code, out, _ = run(capsys, "check", empty)
+    assert code == 0
+    lines = [line for line in out.splitlines() if line.startswith("  holds")]
+    assert len(lines) == 2 and all("0 case(s)" in x and "warning: no case at all" in x
+                                   for x in lines)
+    code, out, _ = run(capsys, "check", empty, "--json", "-")
+    for entry in json.loads(out)["claims"]:
+        assert entry["tried"] == 0
+        assert "M in open.num has no term up to size 4" in entry["warning"]
+    code, out, _ = run(capsys, "check", empty, "--names", "1", "--json", "-")
+    assert all("warning" not in c for c in json.loads(out)["claims"])
+    # no sort is empty, but two metavariables do not fit in size 1 together
+    together = str(DATA / "hostile" / "empty-together.calc")
+    code, out, _ = run(capsys, "check", together, "--json", "-")
+    entry = json.loads(out)["claims"][0]
+    assert code == 0 and "have no values together up to size 1" in entry["warning"]
+    code, out, _ = run(capsys, "check", together, "--size", "2", "--json", "-")
+    assert code == 1 and "warning" not in json.loads(out)["claims"][0]
+    if importlib.util.find_spec("z3") is not None:  # the solver engine's verdict warns too
+        code, out, _ = run(capsys, "check", together, "--engine", "smt", "--json", "-")
+        entry = json.loads(out)["claims"][0]
+        assert code == 0 and entry["engine"] == "smt" and "no values together" in entry["warning"]
+
+
+@pytest.mark.parametrize(("value", "traceback"), [("", False), ("0", False), ("1", True),
+                                                   ("yes", True)])
+def test_debug_traceback_only_when_asked(capsys, monkeypatch, value, traceback) -> None:
+    """Family: the values of CALCSCOUT_DEBUG (unset or empty and 0 keep tracebacks off)."""
+    import calcscout.obligations.commands.cli as cli_module
+
+    def broken(path):
+        raise RuntimeError("a planted bug")
+
+    monkeypatch.setattr(cli_module, "load", broken)
+    monkeypatch.setenv("CALCSCOUT_DEBUG", value)
+    code, _, err = run(capsys, "check", BASICS)
+    assert code == 70 and "a planted bug" in err
+    assert ("Traceback" in err) == traceback

@@ -3,27 +3,16 @@ conditions hold, bounded search with re-checked counterexamples elsewhere."""
 
 from __future__ import annotations
 
-from functools import cache
-from pathlib import Path
-
 import networkx as nx
 import pytest
+from conftest import load_spec as spec
 
-from obligations.confluence import confluence_theorem, decide_confluent, decide_terminating
-from rules.errors import CalcError
-from rules.notation import parse_term
-from rules.parse import load_file, load_text
-from rules.rewrite import reduction_graph, reducts
-from rules.spec import Bounds, Confluent, Spec, Terminating
-
-DATA = Path(__file__).parent / "data"
-LIBRARY = Path(__file__).parent.parent / "rules" / "library"
-
-
-@cache
-def spec(file: str) -> Spec:
-    path = LIBRARY / file if (LIBRARY / file).exists() else DATA / file
-    return load_file(path)
+from calcscout.obligations.engines.confluence import confluence_theorem, decide_confluent, decide_terminating
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.spec import Bounds, Confluent, Terminating
+from calcscout.rules.loading.load import load_text
+from calcscout.rules.notation.notation import parse_term
+from calcscout.rules.rewriting.rewrite import reduction_graph, reducts
 
 
 def bounds(size=6, steps=10, names=1, nodes=20000) -> Bounds:
@@ -112,7 +101,7 @@ def test_huets_system_without_critical_pairs_is_not_confluent():
 
 
 def test_overlaps_that_no_term_has_are_dropped():
-    from rules.critical import overlaps
+    from calcscout.rules.critical_pairs.critical import overlaps
 
     ov = overlaps(spec("critical/subst.calc").calculi["lets"])
     assert ov.pairs == [] and ov.dropped == 2

@@ -5,24 +5,15 @@ on instances."""
 from __future__ import annotations
 
 import json
-from functools import cache
-from pathlib import Path
 
-from rules.critical import critical_pairs, overlaps, pairs_report, parallel_reducts
-from rules.notation import parse_term, print_abstract
-from rules.parse import load_file
-from rules.rewrite import join, reducts
-from rules.spec import Bounds, Calculus
+from conftest import load_calc as calc
 
-DATA = Path(__file__).parent / "data"
-LIBRARY = Path(__file__).parent.parent / "rules" / "library"
+from calcscout.rules.core.spec import Bounds, Calculus
+from calcscout.rules.critical_pairs.critical import critical_pairs, overlaps, pairs_report, parallel_reducts
+from calcscout.rules.notation.notation import parse_term, print_abstract
+from calcscout.rules.rewriting.rewrite import join, reducts
+
 BOUNDS = Bounds(size=5, steps=10, names=1, nodes=2000)
-
-
-@cache
-def calc(file: str, name: str) -> Calculus:
-    path = LIBRARY / file if (LIBRARY / file).exists() else DATA / file
-    return load_file(path).calculi[name]
 
 
 def shown(c: Calculus):

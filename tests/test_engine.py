@@ -3,17 +3,17 @@ by hand, and the smallest-counterexample promise checked against an independent 
 
 from __future__ import annotations
 
-from pathlib import Path
-
+import conftest
 import pytest
+from conftest import verdicts_of
 
-from obligations.runner import RunOptions, run_claims
-from rules.enumerate import count_tuples, enumerate_tuples
-from rules.parse import load_file
-from rules.spec import Bounds
-from rules.terms import Term
+from calcscout.obligations.runner import RunOptions, run_claims
+from calcscout.rules.core.enumerate import count_tuples, enumerate_tuples
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.core.terms import Term
+from calcscout.rules.loading.load import load_file
 
-DATA = Path(__file__).parent / "data" / "engine"
+DATA = conftest.DATA / "engine"
 
 
 @pytest.fixture(scope="module")
@@ -23,8 +23,7 @@ def spec():
 
 @pytest.fixture(scope="module")
 def verdicts(spec):
-    out, _ = run_claims(spec, list(spec.claims), RunOptions())
-    return {v.name: v for v in out}
+    return verdicts_of(spec)
 
 
 def test_true_claims_hold_with_the_number_of_cases(spec, verdicts) -> None:
@@ -105,7 +104,7 @@ def _stable(d: dict) -> dict:
 
 
 def _flip(t: Term) -> Term:
-    from rules.terms import Node, node
+    from calcscout.rules.core.terms import Node, node
 
     if isinstance(t, Node):
         args = [_flip(a) for a in t.args]
@@ -125,7 +124,7 @@ def _no_smaller_case_fails(spec, size: int, fails) -> None:
 def test_a_premise_step_that_loops_back_is_rechecked_as_a_step() -> None:
     # M -> N with N = M (a rule whose reduct is its redex): the counterexample's premise is
     # re-checked by one-step reducts, not by a shortest path (which would be empty)
-    from rules.parse import load_text
+    from calcscout.rules.loading.load import load_text
 
     spec = load_text("calculus c { names var x\n sort val V ::= x\n sort term M N ::= V | f(M)\n"
                      " rule loop: f(M) -> f(M) }\n"

@@ -13,11 +13,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from obligations import bounded
-from obligations.claims import plan
-from obligations.smt_engine import can_encode, conclusion_kind, run_smt
-from rules.parse import load_file, load_text
-from rules.spec import Bounds
+from calcscout.obligations.claims import plan
+from calcscout.obligations.engines import enumeration
+from calcscout.obligations.engines.smt import can_encode, conclusion_kind, run_smt
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file, load_text
 
 ROOT = Path(__file__).resolve().parents[1]
 FILES = sorted((ROOT / "tests" / "data" / "smt").glob("*.calc")) + sorted(
@@ -26,7 +26,7 @@ FILES = sorted((ROOT / "tests" / "data" / "smt").glob("*.calc")) + sorted(
 
 def both(spec, ob, size: int):
     b = spec.effective_bounds(Bounds(size=size), ob.claim.within)
-    e = bounded.combine(ob.name, "", ob.text, b, [bounded.run_shard(spec, ob, b)])
+    e = enumeration.combine(ob.name, "", ob.text, b, [enumeration.run_shard(spec, ob, b)])
     s = run_smt(spec, ob, b)
     return e, s
 
@@ -46,7 +46,7 @@ def cases():
         for c in spec.claims:
             p = plan(spec, c)
             for ob in ([p.head] if p.head else []) + list(p.parts):
-                if bounded.is_relational(ob) and can_encode(spec, ob)[0]:
+                if enumeration.is_relational(ob) and can_encode(spec, ob)[0]:
                     out.append(pytest.param(path, c.name, ob.name, id=f"{path.stem}-{ob.name}"))
     return out
 

@@ -1,4 +1,4 @@
-"""Enumeration and counting of terms (rules/enumerate.py).
+"""Enumeration and counting of terms (rules/core/enumerate.py).
 
 The counts are checked against published sequences, and the enumeration
 against an independent brute-force enumerator written below: every raw term
@@ -15,26 +15,27 @@ import tracemalloc
 from collections import Counter
 from pathlib import Path
 
+import conftest
 import pytest
 import sympy
+from conftest import load_spec
 
-from rules.enumerate import (
+from calcscout.rules.core.enumerate import (
     count_by_size,
     count_terms,
     count_tuples,
     enumerate_terms,
     enumerate_tuples,
 )
-from rules.parse import load_file
-from rules.sorts import grammar
-from rules.spec import Calculus
-from rules.terms import Name, Node, Term, bound, name, node
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import Calculus
+from calcscout.rules.core.terms import Name, Node, Term, bound, name, node
 
-DATA = Path(__file__).parent / "data" / "enum"
+DATA = conftest.DATA / "enum"
 
 
 def _load(file: str) -> dict[str, Calculus]:
-    return load_file(DATA / file).calculi
+    return load_spec(DATA / file).calculi
 
 
 @pytest.fixture(scope="module")
@@ -324,9 +325,9 @@ def test_min_size_and_empty_bounds(lam):
 
 def test_order_is_the_same_from_run_to_run():
     script = (
-        "from rules.parse import load_file\n"
-        "from rules.enumerate import enumerate_terms\n"
-        "from rules.terms import debug_str\n"
+        "from calcscout.rules.loading.load import load_file\n"
+        "from calcscout.rules.core.enumerate import enumerate_terms\n"
+        "from calcscout.rules.core.terms import debug_str\n"
         f"c = load_file({str(DATA / 'refine.calc')!r}).calculi['arith']\n"
         "print(' '.join(debug_str(t) for t in enumerate_terms(c, 'term', 5, 2)))\n"
     )

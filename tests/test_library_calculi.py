@@ -3,20 +3,14 @@ the same `check` path a user takes (the sources are named in each file's comment
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
+from conftest import LIBRARY, load_spec, verdicts_of
 
-from obligations.runner import RunOptions, run_claims
-from rules.parse import load_file
-
-LIB = Path(__file__).resolve().parents[1] / "rules" / "library"
+LIB = LIBRARY
 
 
 def verdicts(name: str) -> dict:
-    spec = load_file(LIB / name)
-    out, _ = run_claims(spec, list(spec.claims), RunOptions())
-    return {v.name: v for v in out}
+    return verdicts_of(load_spec(LIB / name))
 
 
 def test_lambda_beta_and_beta_eta_are_confluent_and_omega_loops() -> None:

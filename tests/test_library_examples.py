@@ -10,39 +10,32 @@ the comment says so.
 from __future__ import annotations
 
 from functools import cache
-from pathlib import Path
 
+import conftest
 import pytest
+from conftest import LIBRARY, load_spec, verdicts_of
 
-from obligations.runner import RunOptions, run_claims
-from obligations.verdict import Counterexample, Verdict
-from rules.errors import CalcError
-from rules.notation import parse_term, print_abstract
-from rules.parse import load_file
-from rules.rewrite import reducts
-from rules.sorts import grammar
-from rules.spec import Bounds, Spec
-from rules.translate import Translator
+from calcscout.obligations.verdict import Counterexample, Verdict
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import Bounds, Spec
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term, print_abstract
+from calcscout.rules.rewriting.rewrite import reducts
+from calcscout.rules.rewriting.translate import Translator
 
-ROOT = Path(__file__).parent.parent
-LIBRARY = ROOT / "rules" / "library"
-DATA = Path(__file__).parent / "data" / "library"
+DATA = conftest.DATA / "library"
 FILES = ["plotkin-cps.calc", "bracket.calc", "anf.calc", "shift-reset.calc"]
 
 
-@cache
 def spec(file: str) -> Spec:
-    return load_file(LIBRARY / file)
+    return load_spec(LIBRARY / file)
 
 
 @cache
 def _run(file: str, claim: str, bounds: Bounds, collect_all: bool = False
          ) -> dict[str, Verdict]:
-    s = spec(file)
-    chosen = [c for c in s.claims if c.name == claim]
-    assert chosen, f"{file} has no claim {claim}"
-    verdicts, _ = run_claims(s, chosen, RunOptions(bounds=bounds, collect_all=collect_all))
-    return {v.name: v for v in verdicts}
+    return verdicts_of(spec(file), [claim], bounds, collect_all=collect_all)
 
 
 def check(file: str, claim: str, **bounds: int) -> dict[str, Verdict]:
@@ -87,12 +80,8 @@ def holds(v: Verdict) -> bool:
 
 
 @pytest.mark.parametrize("file", FILES)
-def test_library_file_loads_with_its_claims(file):
-    from click.testing import CliRunner
-
-    from obligations.cli import cli
-
-    result = CliRunner().invoke(cli, ["lint", str(LIBRARY / file)])
+def test_library_file_loads_with_its_claims(file, invoke):
+    result = invoke("lint", LIBRARY / file)
     assert result.exit_code == 0, result.output
     assert "ok:" in result.output
     assert spec(file).claims
@@ -252,7 +241,7 @@ def test_textbook_counterexample_on_the_command_line():
 
     from click.testing import CliRunner
 
-    from obligations.cli import cli
+    from calcscout.obligations.commands.cli import cli
 
     result = CliRunner().invoke(cli, ["check", str(LIBRARY / BRACKET), "cl_sim", "cl_sim_outside",
                                       "--json", "-"])

@@ -8,9 +8,9 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import CalcError
-from rules.parse import load_file, load_text
-from rules.spec import Atom, Confluent, ECall, Implies, Shorthand, Terminating
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.core.spec import Atom, Confluent, ECall, Implies, Shorthand, Terminating
+from calcscout.rules.loading.load import load_file, load_text
 
 DATA = Path(__file__).parent / "data"
 BAD = sorted((DATA / "bad").glob("*.calc")) + sorted((DATA / "conformance" / "bad").glob("*.calc"))
@@ -161,7 +161,7 @@ def test_string_escapes() -> None:
 def test_bounds_precedence_command_line_within_file_defaults() -> None:
     """LANGUAGE.md §7: command-line flags over `within`, `within` over the file's `bounds`,
     and that over the built-in defaults (size 6, names 1, steps 10, nodes 20000)."""
-    from rules.spec import Bounds
+    from calcscout.rules.core.spec import Bounds
 
     base = "calculus c { names var x\n sort term M ::= x | s(M) }\n"
     plain = load_text(base + "claim k: M ->* M")
@@ -176,7 +176,7 @@ def test_bounds_precedence_command_line_within_file_defaults() -> None:
 
 
 def test_an_included_files_claims_keep_that_files_bounds(tmp_path: Path) -> None:
-    from rules.spec import Bounds
+    from calcscout.rules.core.spec import Bounds
 
     (tmp_path / "base.calc").write_text(
         "calculus b { names var x\n sort term M ::= x | s(M) }\n"

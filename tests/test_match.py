@@ -3,15 +3,16 @@ contexts (also with the hole under a binder), conditions, instantiation."""
 
 from __future__ import annotations
 
-from functools import cache
-from pathlib import Path
-
+import conftest
 import pytest
+from conftest import load_calc, term
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rules.instantiate import build
-from rules.match import (
+from calcscout.rules.core.spec import Calculus, PAbs, PCon, PMeta, PName, PPlug, Rule
+from calcscout.rules.core.terms import Name, Node, Term, bound, is_internal, name, node
+from calcscout.rules.rewriting.instantiate import build
+from calcscout.rules.rewriting.match import (
     Context,
     check_conditions,
     decompositions,
@@ -19,21 +20,12 @@ from rules.match import (
     match,
     rule_matches,
 )
-from rules.notation import parse_term
-from rules.parse import load_file
-from rules.spec import Calculus, PAbs, PCon, PMeta, PName, PPlug, Rule
-from rules.terms import Name, Node, Term, bound, is_internal, name, node
 
-DATA = Path(__file__).parent / "data" / "rewrite"
+DATA = conftest.DATA / "rewrite"
 
 
-@cache
 def calc(file: str, name_: str) -> Calculus:
-    return load_file(DATA / file).calculi[name_]
-
-
-def term(c: Calculus, text: str) -> Term:
-    return parse_term(c, text)
+    return load_calc(DATA / file, name_)
 
 
 def rule(c: Calculus, rule_name: str) -> Rule:

@@ -10,11 +10,13 @@ from pathlib import Path
 
 import pytest
 
-from encoders.model import explain_model, read_model
-from encoders.smtlib import export_obligations
-from rules.errors import UsageError
-from rules.parse import load_file
-from rules.spec import Bounds
+from calcscout.encoders.model import read_model
+from calcscout.encoders.smtlib import export_obligations
+from calcscout.obligations.claims import plan
+from calcscout.obligations.commands.explain import explain_model
+from calcscout.rules.core.errors import UsageError
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
 
 DATA = Path(__file__).parent / "data"
 CPS = DATA / "smt" / "cps.calc"
@@ -25,7 +27,8 @@ needs_z3 = pytest.mark.skipif(not os.path.exists(Z3), reason="no stand-alone z3"
 def exported(tmp_path: Path, claim: str, size: int) -> Path:
     spec = load_file(str(CPS))
     c = next(c for c in spec.claims if c.name == claim)
-    [p] = export_obligations(spec, c, spec.effective_bounds(Bounds(size=size)), tmp_path)
+    [p] = export_obligations(spec, c, plan(spec, c).obligations, spec.effective_bounds(Bounds(size=size)),
+                             tmp_path)
     return p
 
 

@@ -1,4 +1,4 @@
-"""Printing terms and parsing object terms (rules/notation.py; LANGUAGE.md §3, §4).
+"""Printing terms and parsing object terms (rules/notation/notation.py; LANGUAGE.md §3, §4).
 
 The conformance lines of tests/data/conformance/notation.txt are checked one by
 one against the calculus ``arith`` of every-construct.calc; the other tests pin
@@ -13,11 +13,11 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import TermError
-from rules.notation import notation_tokens, parse_term, print_abstract, print_term
-from rules.parse import load_file
-from rules.spec import AltCon, Calculus
-from rules.terms import Node, bound, name, node
+from calcscout.rules.core.errors import TermError
+from calcscout.rules.core.spec import AltCon, Calculus
+from calcscout.rules.core.terms import Node, bound, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import notation_tokens, parse_term, print_abstract, print_term
 
 DATA = Path(__file__).parent / "data"
 CONFORMANCE = DATA / "conformance"
@@ -308,7 +308,7 @@ def test_unknown_constructor_lists_the_known_ones():
 
 
 def test_a_calculus_without_notations_reads_the_abstract_form_only():
-    from rules.spec import AltNames, Arg, NamesSort, Shape, Sort
+    from calcscout.rules.core.spec import AltNames, Arg, NamesSort, Shape, Sort
 
     plain = Calculus(
         "plain", {"var": NamesSort("var", ("x", "y"))},
@@ -396,6 +396,6 @@ def test_every_kind_of_notation_prints(abstract, shown):
 
 
 def test_the_parser_is_built_once_per_calculus():
-    from rules import notation
+    from calcscout.rules.notation import notation
 
     assert notation._parser(OPS) is notation._parser(OPS)

@@ -1,4 +1,4 @@
-"""Printing then parsing gives back the very same interned term (rules/notation.py).
+"""Printing then parsing gives back the very same interned term (rules/notation/notation.py).
 
 Random terms are built from a calculus's constructor shapes, with bound indices
 in scope and a few free names, and need not be well sorted: the printer and the
@@ -16,11 +16,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from rules.errors import TermError
-from rules.notation import parse_term, print_abstract, print_term
-from rules.parse import load_file
-from rules.spec import Calculus
-from rules.terms import Term, bound, name, node
+from calcscout.rules.core.errors import TermError
+from calcscout.rules.core.spec import Calculus
+from calcscout.rules.core.terms import Term, bound, name, node
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term, print_abstract, print_term
 
 DATA = Path(__file__).parent / "data"
 ARITH = load_file(DATA / "conformance" / "every-construct.calc").calculi["arith"]
@@ -147,7 +147,7 @@ def test_the_generated_grammar_is_unambiguous_on_printed_terms(calc):
     # how the grammar is built.)
     from lark import Lark, Tree
 
-    from rules import notation
+    from calcscout.rules.notation import notation
 
     inner = notation._parser(calc)
     explicit = Lark(inner.grammar, parser="earley", lexer=notation._TokenList,

@@ -22,17 +22,24 @@ from pathlib import Path
 
 import pytest
 
-from obligations.cli import main
-from obligations.progress import LARGE, CaseCount, ProgressLine, count_cases, duration_text
-from obligations.workers import usable_cpus
-from rules.enumerate import count_tuples
-from rules.parse import load_file
+from calcscout.obligations.commands.cli import main
+from calcscout.obligations.progress import (
+    LARGE,
+    CaseCount,
+    ProgressLine,
+    count_cases,
+    duration_text,
+)
+from calcscout.obligations.workers import usable_cpus
+from calcscout.rules.core.enumerate import count_tuples
+from calcscout.rules.loading.load import load_file
 
 DATA = Path(__file__).parent / "data"
 BASICS = str(DATA / "engine" / "basics.calc")
 ROOT = Path(__file__).parent.parent
 SCRIPT = Path(sys.executable).with_name("calcscout")  # the console script of this environment
-COMMAND = [str(SCRIPT)] if SCRIPT.exists() else [sys.executable, "-m", "obligations.cli"]
+CLI = "calcscout.obligations.commands.cli"
+COMMAND = [str(SCRIPT)] if SCRIPT.exists() else [sys.executable, "-m", CLI]
 # `identity` holds, so at size 30 (about 9.8e18 cases) it runs until it is stopped;
 # flip_same is refuted at size 4 at once, flip_back holds (not reached when stopped)
 ENDLESS = ["--size", "30"]
@@ -416,8 +423,13 @@ def test_an_unfinished_claim_has_the_entries_of_a_finished_one() -> None:
     """A stopped claim is reported with the same entries, in the same order, as when it is
     decided (its own, its shorthand parts, its normalize parts), so that a report consumer
     finds every name it expects."""
-    from obligations.runner import RunOptions, claim_records, finish_claim, unfinished_verdicts
-    from rules.spec import Bounds
+    from calcscout.obligations.runner import (
+        RunOptions,
+        claim_records,
+        finish_claim,
+        unfinished_verdicts,
+    )
+    from calcscout.rules.core.spec import Bounds
 
     for path in (BASICS, str(ROOT / "rules" / "library" / "plotkin-cps.calc")):
         spec = load_file(path)

@@ -7,19 +7,19 @@ from __future__ import annotations
 import dataclasses
 import gc
 import weakref
-from functools import cache
-from pathlib import Path
 
+import conftest
 import networkx as nx
 import pytest
+from conftest import LIBRARY, load_calc, term
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rules.enumerate import enumerate_terms
-from rules.errors import FileError
-from rules.notation import parse_term
-from rules.parse import load_file
-from rules.rewrite import (
+from calcscout.rules.core.enumerate import enumerate_terms
+from calcscout.rules.core.errors import FileError
+from calcscout.rules.core.spec import Calculus, Rule
+from calcscout.rules.core.terms import Term, is_internal, name, node
+from calcscout.rules.rewriting.rewrite import (
     find_cycle,
     join,
     normal_forms,
@@ -29,21 +29,13 @@ from rules.rewrite import (
     reduction_graph,
     reducts,
 )
-from rules.spec import Calculus, Rule
-from rules.terms import Term, is_internal, name, node
 
-DATA = Path(__file__).parent / "data" / "rewrite"
-LIBRARY = Path(__file__).parent.parent / "rules" / "library"
+DATA = conftest.DATA / "rewrite"
 
 
-@cache
 def calc(file: str, name_: str) -> Calculus:
     folder = LIBRARY if file in {"lambda.calc", "lamv.calc", "ski.calc"} else DATA
-    return load_file(folder / file).calculi[name_]
-
-
-def term(c: Calculus, text: str) -> Term:
-    return parse_term(c, text)
+    return load_calc(folder / file, name_)
 
 
 def steps_of(c: Calculus, text: str, group: str | None = None) -> list[tuple[str, str, Term]]:

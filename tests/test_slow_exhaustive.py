@@ -7,10 +7,10 @@ from pathlib import Path
 
 import pytest
 
-from obligations.runner import RunOptions, run_claims
-from rules.enumerate import count_by_size
-from rules.parse import load_file
-from rules.spec import Bounds
+from calcscout.obligations.runner import RunOptions, run_claims
+from calcscout.rules.core.enumerate import count_by_size
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
 
 ROOT = Path(__file__).resolve().parents[1]
 DEMO = ROOT / "rules" / "demo"
@@ -53,7 +53,7 @@ def test_jobs_and_shards_agree_with_one_process_on_the_demo() -> None:
 def test_lambda_calculus_bounded_search_agrees_with_church_rosser_at_size_8() -> None:
     # β is confluent (Church and Rosser 1936; Barendregt 1984, Theorem 3.2.8): the bounded
     # search alone must find no counterexample either
-    from obligations.confluence import decide_confluent
+    from calcscout.obligations.engines.confluence import decide_confluent
 
     spec = load_file(LIB / "lambda.calc")
     v = decide_confluent(spec, "lambda", spec.effective_bounds(Bounds(size=8)), prove=False)

@@ -7,11 +7,11 @@ from pathlib import Path
 import pytest
 import z3
 
-from obligations.claims import plan
-from obligations.smt_engine import can_encode, choose_engine, run_smt
-from rules.errors import EncodingError
-from rules.parse import load_file
-from rules.spec import Bounds
+from calcscout.obligations.claims import plan
+from calcscout.obligations.engines.smt import can_encode, choose_engine, run_smt
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
 
 DATA = Path(__file__).parent / "data"
 CPS = DATA / "smt" / "cps.calc"

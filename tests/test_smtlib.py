@@ -10,12 +10,12 @@ from pathlib import Path
 
 import pytest
 
-from encoders.smtlib import export_obligations, read_header
-from obligations.claims import plan
-from obligations.smt_engine import run_smt
-from rules.errors import EncodingError
-from rules.parse import load_file
-from rules.spec import Bounds
+from calcscout.encoders.smtlib import export_obligations, read_header
+from calcscout.obligations.claims import plan
+from calcscout.obligations.engines.smt import run_smt
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
 
 DATA = Path(__file__).parent / "data"
 CPS = DATA / "smt" / "cps.calc"
@@ -25,7 +25,8 @@ Z3 = os.path.join(sysconfig.get_path("scripts"), "z3")
 def export(path: Path, claim: str, size: int, out: Path) -> list[Path]:
     spec = load_file(str(path))
     c = next(c for c in spec.claims if c.name == claim)
-    return export_obligations(spec, c, spec.effective_bounds(Bounds(size=size)), out)
+    return export_obligations(spec, c, plan(spec, c).obligations, spec.effective_bounds(Bounds(size=size)),
+                              out)
 
 
 def solve_file(p: Path) -> str:
@@ -57,7 +58,8 @@ def test_standalone_solver_agrees_with_in_process(tmp_path, claim, size):
 def test_shorthand_gives_one_file_per_encodable_part(tmp_path):
     spec = load_file(str(DATA / "conformance" / "every-construct.calc"))
     c = next(c for c in spec.claims if c.name == "iso")
-    paths = export_obligations(spec, c, spec.effective_bounds(Bounds(size=3)), tmp_path)
+    paths = export_obligations(spec, c, plan(spec, c).obligations, spec.effective_bounds(Bounds(size=3)),
+                               tmp_path)
     assert sorted(p.name for p in paths) == ["iso.exact_counit.smt2", "iso.exact_unit.smt2",
                                              "iso.mono_F_.smt2", "iso.mono_G_.smt2"]
 

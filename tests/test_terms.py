@@ -8,7 +8,7 @@ import pickle
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rules import terms as T
+from calcscout.rules.core import terms as T
 
 NAMES = ["x", "y", "z"]
 

@@ -7,10 +7,10 @@ from pathlib import Path
 
 import pytest
 
-from rules.errors import CalcError
-from rules.notation import parse_term
-from rules.parse import load_file
-from rules.translate import TranslationFailure, Translator
+from calcscout.rules.core.errors import CalcError
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term
+from calcscout.rules.rewriting.translate import TranslationFailure, Translator
 
 DATA = Path(__file__).parent / "data" / "translate"
 
@@ -51,7 +51,7 @@ def test_plotkin_cbv_cps_by_hand(spec, source: str, expected: str) -> None:
 def test_extra_argument_version_agrees_up_to_administrative_steps(spec, source, expected):
     # cbk passes the continuation down; for a variable or a λ it gives k applied at once
     # where cbv gives an administrative redex; both must reach the same term by beta.
-    from rules.rewrite import join
+    from calcscout.rules.rewriting.rewrite import join
 
     got = run(spec, "cbk", source)
     j = join(spec.calculi["cps"], got, cps(spec, expected), 10, 5000)
@@ -83,7 +83,7 @@ def test_then_normalize_applies_the_group(spec) -> None:
     # of what the equations build
     got = run(spec, "cbv_eta", r"(\x. x) y")
     plain = run(spec, "cbv", r"(\x. x) y")
-    from rules.rewrite import normal_forms, reduction_graph
+    from calcscout.rules.rewriting.rewrite import normal_forms, reduction_graph
 
     g = reduction_graph(spec.calculi["cps"], plain, 20, 5000, "admin")
     assert normal_forms(g) == [got]

@@ -12,10 +12,9 @@ from pathlib import Path
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from rules.parse import load_file, load_text
-from rules.sorts import grammar
-from rules.spec import Calculus
-from rules.unify import (
+from calcscout.rules.core.sorts import grammar
+from calcscout.rules.core.spec import Calculus
+from calcscout.rules.critical_pairs.unify import (
     MetaInfo,
     UBound,
     UMeta,
@@ -26,6 +25,7 @@ from rules.unify import (
     resolve,
     unify,
 )
+from calcscout.rules.loading.load import load_file, load_text
 
 with warnings.catch_warnings():
     # unification 0.3 imports a deprecated toolz module.

@@ -9,19 +9,17 @@ times over), and the speed-up of --jobs 2 over --jobs 1.  Run: .venv/bin/python 
 from __future__ import annotations
 
 import resource
-import sys
 import tempfile
 import time
 from pathlib import Path
 
-HERE = Path(__file__).resolve().parent
-sys.path.insert(0, str(HERE.parent.parent))
+from calcscout.obligations.runner import RunOptions, run_claims
+from calcscout.rules.core.enumerate import enumerate_terms
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.rewriting.translate import Translator
 
-from obligations.runner import RunOptions, run_claims  # noqa: E402
-from rules.enumerate import enumerate_terms  # noqa: E402
-from rules.parse import load_file  # noqa: E402
-from rules.spec import Bounds  # noqa: E402
-from rules.translate import Translator  # noqa: E402
+HERE = Path(__file__).resolve().parent
 
 PLOTKIN = HERE.parent / "data" / "translate" / "plotkin.calc"
 CLAIMS = f"""include "{PLOTKIN}"

@@ -12,23 +12,21 @@ Pass ``--quick`` for a smaller graph (a smoke run).
 from __future__ import annotations
 
 import cProfile
+import dataclasses
+import gc
 import io
 import pstats
 import sys
 import time
 from pathlib import Path
 
+from calcscout.obligations.engines.confluence import decide_confluent, decide_terminating
+from calcscout.rules.core.spec import Bounds
+from calcscout.rules.loading.load import load_file
+from calcscout.rules.notation.notation import parse_term
+from calcscout.rules.rewriting.rewrite import reduction_graph
+
 ROOT = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(ROOT))
-
-import dataclasses  # noqa: E402
-import gc  # noqa: E402
-
-from obligations.confluence import decide_confluent, decide_terminating  # noqa: E402
-from rules.notation import parse_term  # noqa: E402
-from rules.parse import load_file  # noqa: E402
-from rules.rewrite import reduction_graph  # noqa: E402
-from rules.spec import Bounds  # noqa: E402
 
 LAMBDA = ROOT / "rules" / "library" / "lambda.calc"
 # y applied to six copies of (\x. x x x) (\x. x x x): each copy is an endless chain of
@@ -69,7 +67,7 @@ def main() -> None:
     n, e = g.number_of_nodes(), g.number_of_edges()
     print(f"\nreduction graph of {BIG}:\n  {n} terms, {e} edges, cut by {g.graph['cut_by']}, "
           f"{dt:.2f} s, {n / dt:,.0f} terms/s, {e / dt:,.0f} edges/s")
-    from obligations.confluence import paused_gc
+    from calcscout.obligations.engines.confluence import paused_gc
 
     fresh = dataclasses.replace(calc)
     term = parse_term(fresh, BIG)

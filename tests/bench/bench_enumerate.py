@@ -9,16 +9,14 @@ slows Python down), and at the end the process's peak resident size
 from __future__ import annotations
 
 import resource
-import sys
 import time
 import tracemalloc
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(ROOT))
+from calcscout.rules.core.enumerate import count_terms, enumerate_terms
+from calcscout.rules.loading.load import load_file
 
-from rules.enumerate import count_terms, enumerate_terms  # noqa: E402
-from rules.parse import load_file  # noqa: E402
+ROOT = Path(__file__).resolve().parents[2]
 
 DATA = ROOT / "tests" / "data" / "enum"
 

@@ -20,7 +20,8 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[2]
 BASICS = str(ROOT / "tests" / "data" / "engine" / "basics.calc")
 SCRIPT = Path(sys.executable).with_name("calcscout")
-COMMAND = [str(SCRIPT)] if SCRIPT.exists() else [sys.executable, "-m", "obligations.cli"]
+CLI = "calcscout.obligations.commands.cli"
+COMMAND = [str(SCRIPT)] if SCRIPT.exists() else [sys.executable, "-m", CLI]
 
 
 def children(pid: int) -> list[int]:

@@ -16,13 +16,11 @@ from __future__ import annotations
 
 import argparse
 import multiprocessing
-import sys
 import tempfile
 import time
 from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
-sys.path.insert(0, str(ROOT))
 
 FIXTURE = ROOT / "tests" / "data" / "smt" / "cps.calc"
 
@@ -42,11 +40,11 @@ def bug_text(size: int) -> str:
 
 def _run(args) -> tuple[str, float, int | None]:
     path, claim, engine, size = args
-    from obligations import bounded
-    from obligations.claims import plan
-    from obligations.smt_engine import run_smt
-    from rules.parse import load_file
-    from rules.spec import Bounds
+    from calcscout.obligations.claims import plan
+    from calcscout.obligations.engines import enumeration
+    from calcscout.obligations.engines.smt import run_smt
+    from calcscout.rules.core.spec import Bounds
+    from calcscout.rules.loading.load import load_file
 
     spec = load_file(path)
     c = next(c for c in spec.claims if c.name == claim)
@@ -56,7 +54,7 @@ def _run(args) -> tuple[str, float, int | None]:
     if engine == "smt":
         v = run_smt(spec, ob, b, timeout=None)
     else:
-        v = bounded.combine(ob.name, "", ob.text, b, [bounded.run_shard(spec, ob, b)])
+        v = enumeration.combine(ob.name, "", ob.text, b, [enumeration.run_shard(spec, ob, b)])
     ce = v.counterexample.size if v.counterexample else None
     return v.verdict, time.perf_counter() - t, ce
 

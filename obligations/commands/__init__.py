@@ -1,0 +1,1 @@
+"""The ``calcscout`` command line and the commands that work from saved reports."""

@@ -1,0 +1,405 @@
+"""The enumeration engine: every case of an obligation up to the bounds,
+smallest first (LANGUAGE.md §8).
+
+The quantified metavariables are enumerated jointly by increasing total size
+(calcscout.rules.core.enumerate.enumerate_tuples), so the first failing case is a smallest
+one.  A case that fails is re-checked along an independent path (the printed
+terms parsed back, translations recomputed with empty memo tables,
+reachability by the rewriting module's own graph builder) before it is
+reported; a re-check that disagrees is an internal error, never a verdict.
+
+Work is split for ``--jobs`` and ``--shard`` by the enumeration's own
+deterministic sharding; a :class:`Partial` records what one shard saw
+(failures and undecided cases by their global index), and :func:`combine`
+gives exactly the verdict of an unsharded run.
+"""
+
+from __future__ import annotations
+
+import gc
+import time
+from collections import Counter
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any
+
+from calcscout.obligations.claims import Obligation
+from calcscout.obligations.engines.evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome, search
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+from calcscout.rules.core.enumerate import enumerate_tuples
+from calcscout.rules.core.spec import Atom, Bounds, Calculus, Implies, Spec
+from calcscout.rules.core.terms import Term
+from calcscout.rules.notation.notation import parse_term, print_abstract
+from calcscout.rules.rewriting.rewrite import paused_gc, position_text, reaches, reduction_graph, reducts
+from calcscout.rules.rewriting.translate import Undefined
+
+ALL_LIMIT = 10
+
+
+class InternalError(Exception):
+    """A re-check disagreed with the engine: a bug in calcscout."""
+
+
+@dataclass
+class Failure:
+    index: int  # global position of the quantified tuple in the enumeration
+    counterexample: Counterexample
+
+
+@dataclass
+class Partial:
+    """What one shard of an obligation's enumeration found."""
+
+    name: str
+    tried: int = 0
+    cases: int = 0
+    failures: list[Failure] = field(default_factory=list)
+    undecided: list[tuple[int, str]] = field(default_factory=list)  # (index, bound)
+    premise_cut: int = 0
+    seconds: float = 0.0
+    # translation -> [[case index, 0 fine | 1 cut | 2 several normal forms], ...]
+    normalize: dict[str, list[list[int]]] = field(default_factory=dict)
+    # translation -> the smallest-index case where the group had several normal forms
+    several: dict[str, dict[str, Any]] = field(default_factory=dict)
+    collect_all: bool = False
+    example: Failure | None = None  # the first undecided case, to show the user
+
+    def to_json(self) -> dict[str, Any]:
+        return {"tried": self.tried, "cases": self.cases,
+                "failures": [{"index": f.index, "counterexample": f.counterexample.to_json()}
+                             for f in self.failures],
+                "undecided": [list(u) for u in self.undecided], "premise_cut": self.premise_cut,
+                "seconds": self.seconds, "normalize": self.normalize,
+                "several": self.several,
+                "collect_all": self.collect_all,
+                "example": ({"index": self.example.index,
+                             "counterexample": self.example.counterexample.to_json()}
+                            if self.example else None)}
+
+    @classmethod
+    def from_json(cls, name: str, d: dict[str, Any]) -> Partial:
+        return cls(name, d["tried"], d["cases"],
+                   [Failure(f["index"], Counterexample.from_json(f["counterexample"]))
+                    for f in d["failures"]],
+                   [(u[0], u[1]) for u in d["undecided"]], d["premise_cut"], d["seconds"],
+                   d.get("normalize", {}), d.get("several", {}),
+                   d.get("collect_all", False),
+                   Failure(d["example"]["index"],
+                           Counterexample.from_json(d["example"]["counterexample"]))
+                   if d.get("example") else None)
+
+
+Progress = Callable[[int], None]
+
+
+def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int] | None = None,
+              collect_all: bool = False, progress: Progress | None = None) -> Partial:
+    """Enumerate this shard's cases of a relational obligation (Atom or Implies)."""
+    start = time.perf_counter()
+    f = ob.formula
+    assert isinstance(f, Atom | Implies)
+    ev = Evaluator(spec, bounds)
+    slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
+    assert bounds.size is not None and bounds.names is not None
+    part = Partial(ob.name, collect_all=collect_all)
+    i0, n = (shard[0] - 1, shard[1]) if shard else (0, 1)
+    stream = enumerate_tuples(slots, bounds.size, bounds.names, shard=shard)
+    with paused_gc():
+        _run_cases(spec, ob, bounds, ev, f, stream, i0, n, part, collect_all, progress)
+    part.seconds = time.perf_counter() - start
+    return part
+
+
+def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Atom | Implies,
+               stream, i0: int, n: int, part: Partial, collect_all: bool,
+               progress: Progress | None) -> None:
+    """Decide the stream's cases in order, stopping at the first failure unless collecting."""
+    for k, values in enumerate(stream):
+        if k % 512 == 511:
+            gc.collect(0)  # the young generation only: cheap, and frees any short cycles
+        index = i0 + k * n
+        env = {m.name: v for m, v in zip(ob.quantified, values, strict=True)}
+        part.tried += 1
+        if progress is not None and part.tried % 64 == 0:
+            progress(part.tried)
+        ev.case_norm = {}
+        outcome, case_env, step, seen = _decide_tuple(ev, f, env, part)
+        for trn, (code, undefined) in ev.case_norm.items():
+            part.normalize.setdefault(trn, []).append([index, code])
+            if code == 2 and trn not in part.several:
+                part.several[trn] = _several_example(spec, trn, index, undefined, bounds)
+        if outcome.status == UNDECIDED:
+            part.undecided.append((index, outcome.cut_by or "steps"))
+            if part.example is None:
+                part.example = Failure(index, build_counterexample(spec, ob, ev, case_env, seen,
+                                                                   outcome, step))
+        elif outcome.status == FAIL:
+            ce = build_counterexample(spec, ob, ev, case_env, seen, outcome, step)
+            recheck(spec, ob, bounds, case_env, ce)
+            part.failures.append(Failure(index, ce))
+            if not collect_all or len(part.failures) >= ALL_LIMIT:
+                break
+
+
+def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
+    """The outcome of the cases of one quantified tuple (several, for a premise)."""
+    if isinstance(f, Atom):
+        part.cases += 1
+        seen: dict = {}
+        return ev.decide(f, env, seen), env, None, seen
+    undecided: tuple | None = None
+    m = env[f.premise.left.name]
+    nname = f.premise.right.name  # type: ignore[union-attr]
+    for value, rule, pos in ev.generated(f.premise, m):
+        part.cases += 1
+        case = dict(env)
+        case[nname] = value
+        seen = {}
+        o = ev.decide(f.conclusion, case, seen)
+        if o.status == FAIL:
+            return o, case, (rule, pos), seen
+        if o.status == UNDECIDED and undecided is None:
+            undecided = (o, case, (rule, pos), seen)
+    if ev.premise_cut:
+        part.premise_cut += 1
+    if undecided is not None:
+        return undecided
+    return Outcome(OK), env, None, {}
+
+
+def _several_example(spec: Spec, trn: str, index: int, u: Undefined | None,
+                     bounds: Bounds) -> dict[str, Any]:
+    tr = spec.translations[trn]
+    calc = spec.calculi[tr.target]
+    assert u is not None
+    _recheck_normal_forms(calc, tr.normalize, u, bounds)
+    return {"index": index, "term": print_abstract(calc, u.built),
+            "normal_forms": [print_abstract(calc, t) for t in u.normal_forms[:4]],
+            "size": u.built.size, "cycles": u.cut_by == "cycle"}
+
+
+def _recheck_normal_forms(calc: Calculus, group: str | None, u: Undefined, bounds: Bounds) -> None:
+    """Before a normalisation is reported undefined: each normal form it names is one, is
+    distinct, and is reached from the built term by the early-exit search (not the graph
+    builder that found it)."""
+    assert bounds.steps is not None and bounds.nodes is not None
+    if u.reason == "several-normal-forms":
+        ok = len(set(u.normal_forms)) >= 2 and all(
+            not reducts(calc, t, group) and
+            search(calc, u.built, t, bounds.steps, bounds.nodes, group).found
+            for t in u.normal_forms[:4])
+    else:  # a complete graph without a normal form: no reachable term is normal
+        r = search(calc, u.built, u.built, bounds.steps, bounds.nodes, group, plus=True)
+        ok = r.complete and not r.normal_forms
+    if not ok:
+        raise InternalError(f"re-check: the normalisation of {u.built!r} is not undefined")
+
+
+# ---------------------------------------------------------------- counterexamples
+
+
+def build_counterexample(spec: Spec, ob: Obligation, ev: Evaluator, env: dict[str, Term],
+                         seen: dict, outcome: Outcome, step) -> Counterexample:
+    terms: dict[str, Any] = {}
+    size = 0
+    for m in ob.quantified:
+        terms[m.name] = print_abstract(spec.calculi[m.calculus], env[m.name])
+        size += env[m.name].size
+    f = ob.formula
+    details = dict(outcome.details)
+    evidence = outcome.evidence
+    if isinstance(f, Implies):
+        nname = f.premise.right.name  # type: ignore[union-attr]
+        calc = spec.calculi[f.premise.left.calculus]
+        terms[nname] = print_abstract(calc, env[nname])
+        rule, pos = step
+        rel = f.premise.relation
+        assert rel is not None
+        if rule:
+            where = position_text(pos)
+            details["premise_step"] = {"rule": rule, "position": where}
+            evidence = (f"{f.premise.left.name} {rel.kind} {nname} (first step by rule {rule} at "
+                        f"position {where}); " + evidence)
+    for key, (calc_name, value) in seen.items():
+        if key in terms:
+            continue
+        calc = spec.calculi[calc_name]
+        if isinstance(value, Undefined):
+            why = ("several normal forms" if value.reason == "several-normal-forms"
+                   else f"no normal form within the bound on {value.cut_by}")
+            terms[key] = f"undefined: {print_abstract(calc, value.built)} has {why}"
+        else:
+            terms[key] = print_abstract(calc, value)
+    return Counterexample(size, terms, evidence, details)
+
+
+def recheck(spec: Spec, ob: Obligation, bounds: Bounds, env: dict[str, Term],
+            ce: Counterexample) -> None:
+    """Decide the failing case again along an independent path; raise InternalError if it
+    does not fail there too."""
+    fresh_env: dict[str, Term] = {}
+    f = ob.formula
+    names = [m.name for m in ob.quantified]
+    calcs = {m.name: m.calculus for m in ob.quantified}
+    if isinstance(f, Implies):
+        names.append(f.premise.right.name)  # type: ignore[union-attr]
+        calcs[f.premise.right.name] = f.premise.left.calculus  # type: ignore[union-attr]
+    for n in names:
+        calc = spec.calculi[calcs[n]]
+        t = parse_term(calc, ce.terms[n], "<counterexample>")
+        if t is not env[n]:
+            raise InternalError(f"counterexample {n} = {ce.terms[n]} does not read back as the "
+                                "term that failed")
+        fresh_env[n] = t
+    ev = Evaluator(spec, bounds)
+    if isinstance(f, Implies):
+        m = fresh_env[f.premise.left.name]
+        n = fresh_env[f.premise.right.name]  # type: ignore[union-attr]
+        rel = f.premise.relation
+        assert rel is not None and bounds.steps is not None and bounds.nodes is not None
+        calc = spec.calculi[rel.calculus or f.premise.left.calculus]
+        if rel.kind in ("->", "->="):
+            ok = (rel.kind == "->=" and m is n) or any(
+                s.result is n for s in reducts(calc, m, rel.group))
+        else:
+            ok = search(calc, m, n, bounds.steps, bounds.nodes, rel.group,
+                        plus=rel.kind == "->+").found
+        if not ok:
+            raise InternalError("re-check: the premise's N is not generated by M")
+        atom = f.conclusion
+    else:
+        atom = f
+    if isinstance(atom, Atom) and atom.relation is not None and atom.relation.kind in ("->*", "->+"):
+        # independent reachability: the full graph, not the early-exit search
+        left = ev.value(atom.left, fresh_env, {})
+        right = ev.value(atom.right, fresh_env, {})  # type: ignore[arg-type]
+        calc = spec.calculi[atom.relation.calculus or atom.left.calculus]
+        assert bounds.steps is not None and bounds.nodes is not None
+        g = reduction_graph(calc, left, bounds.steps, bounds.nodes, atom.relation.group)
+        if not g.graph["complete"]:
+            raise InternalError("re-check: the graph of a definite failure is not complete")
+        if atom.relation.kind == "->+" and left is right:
+            fails = not any(g.has_edge(x, left) for x in g)  # no cycle back to the start
+        else:
+            fails = reaches(g, right) is None
+        if not fails:
+            raise InternalError("re-check: the target is reachable after all")
+        return
+    outcome = ev.decide(atom, fresh_env, {})
+    if outcome.status != FAIL:
+        raise InternalError(f"re-check of counterexample for {ob.name} gave {outcome.status}")
+
+
+# ---------------------------------------------------------------- combining
+
+
+def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial],
+            engine: str = "enum") -> Verdict:
+    """The verdict of the whole enumeration from its shards' partials."""
+    failures = sorted((f for p in parts for f in p.failures), key=lambda f: f.index)
+    undecided = sorted(u for p in parts for u in p.undecided)
+    seconds = max((p.seconds for p in parts), default=0.0)
+    v = Verdict(name, file, text, HOLDS, bounds, engine=engine, seconds=seconds)
+    premise_cut = sum(p.premise_cut for p in parts)
+    if failures:
+        first = failures[0]
+        v.verdict = REFUTED
+        v.counterexample = first.counterexample
+        v.tried = first.index + 1
+        collected = failures[:ALL_LIMIT]
+        if _collect_all(parts) and len(collected) > 1:
+            v.more = [f.counterexample for f in collected]
+            v.tried = sum(p.tried for p in parts)
+            before = undecided
+        else:
+            before = [u for u in undecided if u[0] < first.index]
+        v.undecided = len(before)
+        v.cut_by = _main_bound(before)
+    else:
+        v.tried = sum(p.tried for p in parts)
+        v.undecided = len(undecided)
+        if undecided:
+            v.verdict = INCONCLUSIVE
+            v.cut_by = _main_bound(undecided)
+            if v.cut_by == "normalize":
+                v.reason = (f"{len(undecided)} of {v.tried} case(s) need a normalised "
+                            "translation where it is undefined (see its normalize part)")
+            else:
+                v.reason = (f"{len(undecided)} of {v.tried} case(s) were cut by the bound on "
+                            f"{v.cut_by} before they could be settled")
+            examples = [p.example for p in parts if p.example is not None]
+            if examples:
+                v.undecided_example = min(examples, key=lambda f: f.index).counterexample
+    if premise_cut:
+        v.notes.append(f"the premise's reduction graph was cut for {premise_cut} value(s); the "
+                       "claim was checked only for the N it generated")
+    return v
+
+
+def _collect_all(parts: list[Partial]) -> bool:
+    return any(p.collect_all for p in parts)
+
+
+def _main_bound(undecided: list[tuple[int, str]]) -> str | None:
+    if not undecided:
+        return None
+    counts = Counter(b for _, b in undecided)
+    return counts.most_common(1)[0][0]
+
+
+def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bounds: Bounds,
+                      parts: list[Partial], cutoffs: dict[str, int | None],
+                      engine: str = "enum") -> Verdict:
+    """The ``normalize(T)`` part: the group ended with one normal form on every term it met.
+
+    Only the cases each obligation's own verdict rests on count (up to its first
+    counterexample, ``cutoffs``), so that every split of the work gives the same part.
+    """
+    met = several = 0
+    cuts: Counter[str] = Counter()
+    example = None
+    for p in parts:
+        limit = cutoffs.get(p.name)
+        for index, code in p.normalize.get(trn, []):
+            if limit is not None and index > limit:
+                continue
+            met += 1
+            if code in (1, 3):
+                cuts["steps" if code == 1 else "nodes"] += 1
+            elif code == 2:
+                several += 1
+        ex = p.several.get(trn)
+        if ex is not None and (limit is None or ex["index"] <= limit):
+            if example is None or (ex["index"], ex["size"]) < (example["index"], example["size"]):
+                example = ex
+    v = Verdict(name, file, text, HOLDS, bounds, tried=met, engine=engine)
+    if several and example is not None:
+        v.verdict = REFUTED
+        if example.get("cycles"):
+            evidence = (f"group {group} has no normal form from {example['term']}: its reduction "
+                        "graph is complete and every path cycles")
+        else:
+            evidence = (f"group {group} reaches several normal forms from {example['term']}: "
+                        f"{', '.join(example['normal_forms'])}")
+        v.counterexample = Counterexample(
+            example["size"], {"term": example["term"], "normal_forms": example["normal_forms"]},
+            evidence)
+    elif cuts:
+        v.verdict = INCONCLUSIVE
+        v.undecided = sum(cuts.values())
+        v.cut_by = cuts.most_common(1)[0][0]
+        v.reason = (f"{v.undecided} of {met} case(s) met a term with no normal form under "
+                    f"{group} within the bound on {v.cut_by}")
+    return v
+
+
+def first_failure(parts: list[Partial], collect_all: bool) -> int | None:
+    """The index an obligation's verdict stops at (its first counterexample), if any."""
+    if collect_all:
+        return None
+    indices = [f.index for p in parts for f in p.failures]
+    return min(indices) if indices else None
+
+
+def is_relational(ob: Obligation) -> bool:
+    return isinstance(ob.formula, Atom | Implies)

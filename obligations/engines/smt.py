@@ -1,0 +1,199 @@
+"""The SMT engine behind ``--engine smt`` and ``--engine auto`` (the glue to encoders/).
+
+No z3 here: the encoders are imported inside the functions, so that the
+obligations package knows nothing of the solver (DESIGN.md).
+
+Which engine ``auto`` takes, per obligation (:func:`choose_engine`):
+
+- ``smt`` for an obligation the solver *decides* — a conclusion ``A == B``,
+  ``A : S``, ``A -> B`` or ``A ->= B``, alone or under a premise ``M -> N`` /
+  ``M ->= N`` — and that it can encode: there the solver reaches sizes far
+  beyond enumeration;
+- ``enum`` for everything else: ``->*``, ``->+`` and ``joins`` conclusions
+  need long reduction paths, which the rewriting engine explores directly
+  while the solver would only propose candidates; translations with ``then
+  normalize``, contexts (``reduce in E``, ``E[...]`` in rules) and premises
+  ``M ->* N`` are not encoded at all; ``confluent`` and ``terminating`` are
+  rewriting questions.
+"""
+
+from __future__ import annotations
+
+from calcscout.obligations.claims import Obligation
+from calcscout.obligations.engines.enumeration import InternalError, build_counterexample, recheck
+from calcscout.obligations.engines.evaluate import FAIL, OK, UNDECIDED, Evaluator
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
+from calcscout.rules.core.enumerate import count_tuples
+from calcscout.rules.core.errors import EncodingError
+from calcscout.rules.core.spec import Atom, Bounds, Implies, Spec
+from calcscout.rules.rewriting.rewrite import reducts
+
+DECIDED_KINDS = ("==", "->", "->=", ":")
+
+
+def can_encode(spec: Spec, ob: Obligation) -> tuple[bool, str]:
+    """Whether the SMT engine can take ``ob``; the reason when it cannot."""
+    from calcscout.encoders.smt import encodable
+
+    if ob.normalizes is not None:
+        return False, "the normalize(T) part is decided by rewriting"
+    ok, why = encodable(spec, ob.formula)
+    if not ok:
+        return ok, why
+    calcs = {m.calculus for m in ob.quantified}
+    if len(calcs) > 1:
+        return False, "the quantified metavariables range over several calculi"
+    if not ob.quantified:
+        return False, "no quantified metavariable"
+    return True, ""
+
+
+def conclusion_kind(ob: Obligation) -> str | None:
+    f = ob.formula
+    atom = f.conclusion if isinstance(f, Implies) else f
+    if not isinstance(atom, Atom):
+        return None
+    return atom.relation.kind if atom.relation is not None else ":"
+
+
+def choose_engine(ob: Obligation, requested: str, spec: Spec | None = None) -> str:
+    """'enum' or 'smt' for ``ob`` (see the module docstring for the rule of ``auto``).
+
+    ``requested`` 'enum' and 'smt' are taken as they are (``run_smt`` then says
+    when the obligation cannot be encoded); ``auto`` needs ``spec`` to see
+    whether the obligation can be encoded.
+    """
+    if requested in ("enum", "smt"):
+        return requested
+    if requested != "auto":
+        raise ValueError(f"unknown engine {requested}")
+    if conclusion_kind(ob) not in DECIDED_KINDS:
+        return "enum"
+    if spec is None:
+        return "enum"
+    ok, _ = can_encode(spec, ob)
+    return "smt" if ok else "enum"
+
+
+def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = None,
+            budget: int = 4_000_000) -> Verdict:
+    """Decide one relational obligation with the solver, size by size up to ``bounds.size``.
+
+    Raises :class:`~calcscout.rules.core.errors.EncodingError` where the obligation cannot be
+    encoded, and :class:`~calcscout.obligations.engines.enumeration.InternalError` where a model of a
+    decided claim does not re-check (a bug, never a verdict).
+    """
+    from calcscout.encoders.z3run import ModelMismatch, solve
+
+    ok, why = can_encode(spec, ob)
+    if not ok:
+        raise EncodingError(f"{ob.name}: cannot be given to the SMT engine: {why}",
+                            ob.claim.pos, hint="use --engine enum or --engine auto")
+    f = ob.formula
+    judge = _Judge(spec, ob, bounds)
+    try:
+        res = solve(spec, f, ob.quantified, bounds, judge, timeout, budget)
+    except ModelMismatch as e:
+        raise InternalError(str(e)) from None
+    v = Verdict(ob.name, ob.claim.file, ob.text, HOLDS, bounds, engine="smt",
+                seconds=res.seconds)
+    slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
+    assert bounds.names is not None
+    if res.status == "refuted":
+        assert res.terms is not None
+        v.verdict = REFUTED
+        v.counterexample = judge.counterexample(res.terms)
+        v.tried = count_tuples(slots, res.size - 1, bounds.names) + 1
+        v.notes.append(f"smt: no counterexample below size {res.size}; "
+                       f"{res.queries} solver quer{'y' if res.queries == 1 else 'ies'}")
+    elif res.status == "holds":
+        v.tried = count_tuples(slots, res.proved_upto, bounds.names)
+        v.notes.append(f"smt: unsat at every size up to {res.proved_upto} "
+                       f"({res.queries} solver quer{'y' if res.queries == 1 else 'ies'}"
+                       + (f", {res.candidates} candidate(s) re-checked" if res.candidates
+                          else "") + ")")
+    else:
+        v.verdict = INCONCLUSIVE
+        v.reason = res.reason
+        v.undecided = res.undecided
+        v.cut_by = "steps" if res.undecided else ("timeout" if res.reason and
+                                                  "timeout" in res.reason else None)
+        v.tried = count_tuples(slots, res.proved_upto, bounds.names)
+    if res.candidates:
+        v.notes.append(f"smt: {res.candidates} candidate(s) re-checked by rewriting, "
+                       f"{res.undecided} undecided")
+    return v
+
+
+def case_judge(spec: Spec, ob: Obligation, bounds: Bounds) -> _Judge:
+    """The rewriting engine's decision of the cases a solver finds for ``ob``
+    (``explain --model`` hands it to the encoders, which may not import it)."""
+    return _Judge(spec, ob, bounds)
+
+
+class _Judge:
+    """The rewriting engine's decision of one case found by the solver."""
+
+    def __init__(self, spec: Spec, ob: Obligation, bounds: Bounds):
+        self.spec = spec
+        self.ob = ob
+        self.bounds = bounds
+        self.last: tuple | None = None
+
+    def __call__(self, terms: dict) -> str:
+        ev = Evaluator(self.spec, self.bounds)
+        f = self.ob.formula
+        env = {m.name: terms[m.name] for m in self.ob.quantified}
+        if isinstance(f, Atom):
+            seen: dict = {}
+            o = ev.decide(f, env, seen)
+            self.last = (ev, env, seen, o, None)
+            return _status(o.status)
+        assert isinstance(f, Implies)
+        nname = f.premise.right.name  # type: ignore[union-attr]
+        m = env[f.premise.left.name]  # type: ignore[union-attr]
+        rel = f.premise.relation
+        assert rel is not None
+        if nname in terms and conclusion_kind(self.ob) in DECIDED_KINDS:
+            n = terms[nname]
+            step = self._step(m, n, rel)
+            if step is None:
+                return "ok"  # not a case at all: the model's N is no reduct of M
+            case = dict(env)
+            case[nname] = n
+            seen = {}
+            o = ev.decide(f.conclusion, case, seen)
+            self.last = (ev, case, seen, o, step)
+            return _status(o.status)
+        undecided = None
+        for value, rule, pos in ev.generated(f.premise, m):
+            case = dict(env)
+            case[nname] = value
+            seen = {}
+            o = ev.decide(f.conclusion, case, seen)
+            if o.status == FAIL:
+                self.last = (ev, case, seen, o, (rule, pos))
+                return "fail"
+            if o.status == UNDECIDED:
+                undecided = True
+        return "undecided" if undecided else "ok"
+
+    def _step(self, m, n, rel):
+        if rel.kind == "->=" and m is n:
+            return ("", ())
+        calc = self.spec.calculi[rel.calculus or self.ob.formula.premise.left.calculus]
+        for s in reducts(calc, m, rel.group):
+            if s.result is n:
+                return (s.rule, s.position)
+        return None
+
+    def counterexample(self, terms: dict):
+        assert self.last is not None
+        ev, env, seen, o, step = self.last
+        ce = build_counterexample(self.spec, self.ob, ev, env, seen, o, step)
+        recheck(self.spec, self.ob, self.bounds, env, ce)
+        return ce
+
+
+def _status(s: str) -> str:
+    return {FAIL: "fail", OK: "ok", UNDECIDED: "undecided"}[s]

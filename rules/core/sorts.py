@@ -1,0 +1,178 @@
+"""Sorts as a bottom-up tree automaton, determinised by the subset construction.
+
+The state of a term is the set of (non-context) sorts it belongs to, computed
+from its constructor and its children's states (Comon et al., *Tree Automata
+Techniques and Applications*, ch. 1).  A name has the state of its names sort;
+a bound name the state of the names sort its binder was declared with.  So
+
+- membership ``t : S`` is ``S in state(t)``, memoised per interned term;
+- the reachable states partition the terms, which is what lets enumeration
+  produce each term once however ambiguous the grammar is;
+- inclusion of sorts is exact over the reachable states: ``A ⊆ B`` iff every
+  reachable state that contains ``A`` contains ``B``.
+"""
+
+from __future__ import annotations
+
+import itertools
+import weakref
+from collections.abc import Iterable
+from functools import cached_property
+
+from calcscout.rules.core.spec import AltCon, AltNames, AltSort, Calculus
+from calcscout.rules.core.terms import Bound, Name, Node, Term
+
+State = frozenset[str]
+EMPTY: State = frozenset()
+
+
+class Grammar:
+    """The automaton of one calculus's (non-context) sorts."""
+
+    def __init__(self, calc: Calculus):
+        self.calc = calc
+        sorts = [s for s in calc.sorts.values() if not s.is_context]
+        self.sort_names = tuple(s.name for s in sorts)
+        # supers[S]: S itself and every sort that includes S through subsort alternatives
+        includes: dict[str, set[str]] = {s.name: set() for s in sorts}
+        for s in sorts:
+            for alt in s.alts:
+                if isinstance(alt, AltSort) and alt.sort in includes:
+                    includes[alt.sort].add(s.name)
+        self.supers: dict[str, frozenset[str]] = {}
+        for s in sorts:
+            seen = {s.name}
+            todo = [s.name]
+            while todo:
+                for up in includes[todo.pop()]:
+                    if up not in seen:
+                        seen.add(up)
+                        todo.append(up)
+            self.supers[s.name] = frozenset(seen)
+        names_states: dict[str, set[str]] = {ns: set() for ns in calc.names_sorts}
+        # con -> list of (owning sort, argument sorts, binder sorts per argument)
+        self.alts: dict[str, list[tuple[str, tuple[str, ...]]]] = {}
+        for s in sorts:
+            for alt in s.alts:
+                if isinstance(alt, AltNames):
+                    names_states.setdefault(alt.names_sort, set()).update(self.supers[s.name])
+                elif isinstance(alt, AltCon):
+                    self.alts.setdefault(alt.con, []).append(
+                        (s.name, tuple(a.sort for a in alt.args))
+                    )
+        self.names_state: dict[str, State] = {
+            ns: frozenset(v) for ns, v in names_states.items()
+        }
+        self._delta: dict[tuple, State] = {}
+        self._memo: weakref.WeakKeyDictionary[Term, dict] = weakref.WeakKeyDictionary()
+
+    # ------------------------------------------------------------ transitions
+
+    def delta(self, con: str, children: tuple[State, ...]) -> State:
+        key = (con, children)
+        got = self._delta.get(key)
+        if got is not None:
+            return got
+        out: set[str] = set()
+        for owner, arg_sorts in self.alts.get(con, ()):
+            if len(arg_sorts) == len(children) and all(
+                a in q for a, q in zip(arg_sorts, children, strict=True)
+            ):
+                out |= self.supers[owner]
+        result = frozenset(out)
+        self._delta[key] = result
+        return result
+
+    def name_state(self, text: str) -> State:
+        ns = self.calc.names_sort_of(text)
+        return self.names_state.get(ns, EMPTY) if ns else EMPTY
+
+    def state(self, term: Term, env: tuple[str, ...] = ()) -> State:
+        """The sorts ``term`` belongs to; ``env[i]`` is the names sort of index i."""
+        if isinstance(term, Name):
+            return self.name_state(term.name)
+        if isinstance(term, Bound):
+            if term.index < len(env):
+                return self.names_state.get(env[term.index], EMPTY)
+            return EMPTY
+        assert isinstance(term, Node)
+        key = env[: term.loose]
+        per_term = self._memo.get(term)
+        if per_term is None:
+            per_term = {}
+            self._memo[term] = per_term
+        got = per_term.get(key)
+        if got is not None:
+            return got
+        shape = self.calc.shapes.get(term.con)
+        if shape is None or shape.binders != term.binders:
+            result = EMPTY
+        else:
+            children = []
+            for arg, bsorts in zip(term.args, shape.binder_sorts, strict=True):
+                inner = tuple(reversed(bsorts)) + env if bsorts else env
+                children.append(self.state(arg, inner))
+            result = self.delta(term.con, tuple(children))
+        per_term[key] = result
+        return result
+
+    def member(self, term: Term, sort: str, env: tuple[str, ...] = ()) -> bool:
+        return sort in self.state(term, env)
+
+    # ------------------------------------------------------------ reachability
+
+    @cached_property
+    def reachable(self) -> tuple[State, ...]:
+        """Every non-empty state some term has, in a fixed order."""
+        found: dict[State, None] = {}
+        for q in self.names_state.values():
+            if q:
+                found.setdefault(q, None)
+        arities = {}
+        for con, shape in self.calc.shapes.items():
+            if con in self.alts:
+                arities[con] = shape.arity
+        changed = True
+        while changed:
+            changed = False
+            current = list(found)
+            for con, k in arities.items():
+                for children in itertools.product(current, repeat=k):
+                    q = self.delta(con, tuple(children))
+                    if q and q not in found:
+                        found[q] = None
+                        changed = True
+        return tuple(sorted(found, key=lambda q: (len(q), sorted(q))))
+
+    def states_with(self, sort: str) -> tuple[State, ...]:
+        return tuple(q for q in self.reachable if sort in q)
+
+    def is_empty(self, sort: str) -> bool:
+        return not self.states_with(sort)
+
+    def included(self, small: str, big: str) -> bool:
+        """Every term of ``small`` is a term of ``big`` (exact, over reachable states)."""
+        return small == big or all(big in q for q in self.states_with(small))
+
+    def overlap(self, a: str, b: str) -> bool:
+        return any(b in q for q in self.states_with(a))
+
+    def sorts_including(self, sorts: Iterable[str]) -> frozenset[str]:
+        """The sorts guaranteed to contain every member of all of ``sorts``' intersection."""
+        sorts = list(sorts)
+        states = [q for q in self.reachable if all(s in q for s in sorts)]
+        if not states:
+            return frozenset(sorts)
+        return frozenset.intersection(*states)
+
+
+_grammars: dict[int, Grammar] = {}
+
+
+def grammar(calc: Calculus) -> Grammar:
+    """The automaton of ``calc``, built once per calculus object."""
+    g = _grammars.get(id(calc))
+    if g is None or g.calc is not calc:
+        g = Grammar(calc)
+        _grammars[id(calc)] = g
+    return g

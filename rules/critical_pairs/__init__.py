@@ -1,0 +1,1 @@
+"""Critical pairs: sorted unification of left-hand sides, overlaps and their joinability."""

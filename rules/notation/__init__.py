@@ -1,0 +1,1 @@
+"""User notations: printing terms with fewest parentheses, parsing terms back."""

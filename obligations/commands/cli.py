@@ -178,32 +178,10 @@ def translate(file: str, function: str, term: str, args: tuple[str, ...], steps:
 # ---------------------------------------------------------------- check
 
 
-class _ProgressLine:
-    """A one-line progress display on standard error, only on a terminal, only after 1 s."""
-
-    def __init__(self) -> None:
-        import time
-
-        self.clock = time.monotonic
-        self.start = self.clock()
-        self.last = 0.0
-        self.enabled = sys.stderr.isatty()
-        self.shown = False
-
-    def __call__(self, name: str, done: int, total: int) -> None:
-        now = self.clock()
-        if not self.enabled or now - self.start < 1.0 or now - self.last < 0.1:
-            return
-        self.last = now
-        pct = f"{100 * done // total:3d}%" if total else "    "
-        sys.stderr.write(f"\r  checking {name}: {done}/{total} values {pct}\x1b[K")
-        sys.stderr.flush()
-        self.shown = True
-
-    def clear(self) -> None:
-        if self.shown:
-            sys.stderr.write("\r\x1b[K")
-            sys.stderr.flush()
+def _positive_seconds(ctx, param, value):
+    if value is not None and not value > 0:
+        raise click.BadParameter(f"must be more than 0 seconds, not {value}")
+    return value
 
 
 def _shard_option(ctx, param, value):
@@ -243,11 +221,22 @@ def _shard_option(ctx, param, value):
               help="Name the rules and equations each counterexample needs (several checks more).")
 @click.option("--by-rule", "by_rule", is_flag=True,
               help="Split each `M -> N implies ...` into one part per rule of the premise's step.")
+@click.option("--time-limit", type=float, default=None, metavar="SECONDS",
+              callback=_positive_seconds,
+              help="Stop after this many seconds, as an interrupted run does: claims not "
+                   "decided by then are inconclusive.")
 def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
           shard, collect_all: bool, quiet: bool, culprits: bool = False,
-          by_rule: bool = False) -> None:
-    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
+          by_rule: bool = False, time_limit: float | None = None
+          ) -> None:
+    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first.
+
+    SIGINT (Ctrl-C) or SIGTERM, or the time limit, stops the run: the report
+    keeps the claims decided so far, the others are inconclusive (cut by
+    "interrupted"); the exit status is then 130, 143, or as the verdicts say.
+    """
+    from calcscout.obligations.progress import ProgressLine
     from calcscout.obligations.reporting.report import (
         dumps,
         json_report,
@@ -257,7 +246,9 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         write_atomically,
     )
     from calcscout.obligations.runner import RunOptions, run_claims
+    from calcscout.obligations.stopping import RunStopped, StopSignals
     from calcscout.obligations.verdict import exit_code
+    from calcscout.obligations.workers import usable_cpus
 
     if (culprits or by_rule) and shard:
         raise UsageError("--culprits and --by-rule take the whole run, not a --shard")
@@ -272,19 +263,31 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
             raise UsageError(f"no claim {missing[0]} in {spec.file}",
                              hint="claims: " + (", ".join(by_name) or "none"))
         chosen = [by_name[c] for c in dict.fromkeys(claims)]  # a claim named twice runs once
-    progress = _ProgressLine()
+    cpus = usable_cpus()
+    if jobs > cpus:
+        click.echo(f"calcscout: --jobs {jobs} is more than the {cpus} CPU(s) this process may "
+                   f"use; using {cpus}", err=True)
+        jobs = cpus
+    progress = ProgressLine()
+    stop = StopSignals(time_limit)
     opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes), jobs, shard,
-                      collect_all, engine, timeout, progress)
-    try:
-        verdicts, partials = run_claims(spec, chosen, opts)
-    finally:
-        progress.clear()
-    if culprits or by_rule:
+                      collect_all, engine, timeout, progress, progress.begin, stop)
+    with stop:
+        try:
+            verdicts, partials = run_claims(spec, chosen, opts)
+        except RunStopped as stopped:  # its report: the claims decided, the others inconclusive
+            assert stopped.verdicts is not None and stopped.records is not None
+            verdicts, partials = stopped.verdicts, stopped.records
+        finally:
+            progress.clear()
+    if (culprits or by_rule) and stop.request is None:
         from calcscout.obligations.analysis.explain_failure import analyse
 
         verdicts = analyse(spec, verdicts, opts.bounds, culprits, by_rule)
     extra = (_shard_fields(sources, shard, engine, timeout, collect_all, partials) if shard
              else None)
+    if stop.request is not None:
+        extra = _say_stopped(stop.request, verdicts, extra)
     report = json_report(spec.file, verdicts, extra)
     if json_path is not None:
         write_atomically(json_path, dumps(report), spec.files)
@@ -295,7 +298,21 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         from calcscout.obligations.analysis.keys import notation_printer
 
         out.write(text_report(spec.file, verdicts, use_colour(out), quiet, notation_printer(spec)))
+    if stop.request is not None and stop.request.status is not None:
+        sys.exit(stop.request.status)
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
+
+
+def _say_stopped(request, verdicts, extra: dict | None) -> dict | None:
+    """Say on standard error that the run was stopped; mark a report it left incomplete
+    (``"stopped"``: ``merge`` refuses a shard that did not do all its work)."""
+    from calcscout.obligations.stopping import INTERRUPTED
+
+    left = sum(1 for v in verdicts if v.cut_by == INTERRUPTED and not v.part_of)
+    click.echo(f"calcscout: stopped by {request.cause}; "
+               + (f"{left} claim(s) not decided are reported inconclusive" if left
+                  else "every claim was decided"), err=True)
+    return {**(extra or {}), "stopped": request.cause} if left else extra
 
 
 def _check_outputs(inputs, *paths: str | None) -> None:

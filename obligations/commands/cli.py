@@ -461,6 +461,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     A pair is settled symbolically (for all instances) or by instances of its
     metavariables up to --size; the output says which.
     """
+    from calcscout.obligations.progress import ProgressLine
     from calcscout.obligations.reporting.report import dumps, write_atomically
     from calcscout.rules.critical_pairs.critical import pairs_report
 
@@ -472,7 +473,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
         raise UsageError(f"calculus {cname} has no rule group {group}",
                          hint="groups: " + (", ".join(calc.groups) or "none"))
     b = spec.effective_bounds(Bounds(size=size, steps=steps, nodes=nodes))
-    progress = _ProgressLine()
+    progress = ProgressLine()
     try:
         report = pairs_report(calc, b, group or None, progress)
     finally:

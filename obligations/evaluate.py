@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rules.notation import print_abstract
-from rules.rewrite import join, position_text, reduction_graph, reducts
+from rules.rewrite import iter_reducts, join, position_text, reduction_graph, reducts
 from rules.sorts import grammar
 from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
 from rules.terms import Node, Term, name, open_body
@@ -65,25 +65,28 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
     while todo:
         t = todo.popleft()
         if depth[t] >= steps:
-            if reducts(calc, t, group):
+            # As the graph builder does (rules.rewrite): a reduct already in the graph is an
+            # edge, not a cut; only a term beyond the bound cuts.  Breadth first, every term
+            # within ``steps`` is already in ``parent`` here.
+            has_step = False
+            for s in iter_reducts(calc, t, group):
+                has_step = True
+                if s.result in parent:
+                    if s.result is target:  # a cycle back to the source, for ->+
+                        return _found(parent, t, s, len(parent), complete, cut_by, normal)
+                    continue
                 complete = False
                 cut_by = cut_by or "steps"
-            else:
+                break
+            if not has_step:
                 normal.append(t)
             continue
-        rs = reducts(calc, t, group)
-        if not rs:
-            normal.append(t)
-        for s in rs:
+        has_step = False
+        for s in iter_reducts(calc, t, group):
+            has_step = True
             r = s.result
             if r is target:
-                path = [(r, s.rule, s.position)]
-                cur: Term | None = t
-                while cur is not None:
-                    up, rule, pos = parent[cur]
-                    path.append((cur, rule, pos))
-                    cur = up
-                return Reach(True, path[::-1], len(parent), complete, cut_by, normal)
+                return _found(parent, t, s, len(parent), complete, cut_by, normal)
             if r in parent:
                 continue
             if len(parent) >= nodes:
@@ -93,7 +96,21 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
             parent[r] = (t, s.rule, s.position)
             depth[r] = depth[t] + 1
             todo.append(r)
+        if not has_step:
+            normal.append(t)
     return Reach(False, [], len(parent), complete, cut_by, normal)
+
+
+def _found(parent: dict, t: Term, s, explored: int, complete: bool, cut_by: str | None,
+           normal: list[Term]) -> Reach:
+    """The path to ``s.result`` through ``t``, read back along ``parent``."""
+    path = [(s.result, s.rule, s.position)]
+    cur: Term | None = t
+    while cur is not None:
+        up, rule, pos = parent[cur]
+        path.append((cur, rule, pos))
+        cur = up
+    return Reach(True, path[::-1], explored, complete, cut_by, normal)
 
 
 def first_difference(calc: Calculus, a: Term, b: Term) -> tuple[tuple[int, ...], Term, Term]:

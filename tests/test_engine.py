@@ -134,3 +134,47 @@ def test_a_premise_step_that_loops_back_is_rechecked_as_a_step() -> None:
     v = out[0]
     assert v.verdict == "refuted"
     assert v.counterexample.terms["M"] == v.counterexample.terms["N"] == "f(x)"
+
+
+def test_a_graph_complete_at_the_bound_on_steps_is_not_cut() -> None:
+    """a -> b -> a within steps 1: the last layer's reduct a is in the graph already, so the
+    graph is complete and a fails M ->* t(M) definitely (it used to be undecided, and the
+    report gave f(c) as the smallest counterexample).
+
+    Family: every judgement of completeness at the bound on steps.  Checked: ->* and ->+
+    (the early-exit search, fixed here, now asks as the graph builder does), joins (both
+    graphs grown by the graph builder: already right), ->+ back to the start through the
+    last layer (holds now, was inconclusive), a premise's graph (not reported cut), and
+    terminating (the graph builder's cycle)."""
+    spec = load_file(DATA / "complete-at-bound.calc")
+    out, _ = run_claims(spec, list(spec.claims), RunOptions())
+    v = {x.name: x for x in out}
+    for name in ("reach", "reach_plus", "join"):
+        assert v[name].verdict == "refuted", name
+        ce = v[name].counterexample
+        assert ce.terms["M"] == "a" and ce.size == 1 and v[name].tried == 1, name
+    g = v["reach"].counterexample.details["graph"]
+    assert g["complete"] is True and g["nodes"] == 2 and g["normal_forms"] == []
+    assert v["cycle"].verdict == "holds" and v["cycle"].undecided == 0
+    assert v["premise"].verdict == "holds" and not v["premise"].notes
+    assert v["stops"].verdict == "refuted"
+    assert v["stops"].counterexample.terms["cycle"] == ["a", "b"]
+
+
+def test_search_agrees_with_the_graph_builder_on_completeness() -> None:
+    """The early-exit search and the full graph builder, on every term of size up to 3 and
+    every bound on steps up to 3: the same completeness and the same answer."""
+    from obligations.evaluate import search
+    from rules.rewrite import reaches, reduction_graph
+
+    spec = load_file(DATA / "complete-at-bound.calc")
+    calc = spec.calculi["c"]
+    terms = [t for (t,) in enumerate_tuples([(calc, "term")], 3, 0)]
+    for steps in (1, 2, 3):
+        for s in terms:
+            g = reduction_graph(calc, s, steps, 100)
+            for t in terms:
+                r = search(calc, s, t, steps, 100)
+                assert r.found == (reaches(g, t) is not None), (s, t, steps)
+                if not r.found:
+                    assert r.complete == g.graph["complete"], (s, t, steps)

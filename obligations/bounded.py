@@ -64,6 +64,7 @@ class Partial:
     several: dict[str, dict[str, Any]] = field(default_factory=dict)
     collect_all: bool = False
     example: Failure | None = None  # the first undecided case, to show the user
+    premise: bool = False  # the obligation has a premise (cases are the N it generates)
 
     def to_json(self) -> dict[str, Any]:
         return {"tried": self.tried, "cases": self.cases,
@@ -75,7 +76,8 @@ class Partial:
                 "collect_all": self.collect_all,
                 "example": ({"index": self.example.index,
                              "counterexample": self.example.counterexample.to_json()}
-                            if self.example else None)}
+                            if self.example else None),
+                "premise": self.premise}
 
     @classmethod
     def from_json(cls, name: str, d: dict[str, Any]) -> Partial:
@@ -87,7 +89,8 @@ class Partial:
                    d.get("collect_all", False),
                    Failure(d["example"]["index"],
                            Counterexample.from_json(d["example"]["counterexample"]))
-                   if d.get("example") else None)
+                   if d.get("example") else None,
+                   d.get("premise", False))
 
 
 Progress = Callable[[int], None]
@@ -102,7 +105,7 @@ def run_shard(spec: Spec, ob: Obligation, bounds: Bounds, shard: tuple[int, int]
     ev = Evaluator(spec, bounds)
     slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
     assert bounds.size is not None and bounds.names is not None
-    part = Partial(ob.name, collect_all=collect_all)
+    part = Partial(ob.name, collect_all=collect_all, premise=isinstance(f, Implies))
     i0, n = (shard[0] - 1, shard[1]) if shard else (0, 1)
     stream = enumerate_tuples(slots, bounds.size, bounds.names, shard=shard)
     with paused_gc():
@@ -315,13 +318,13 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
         else:
             before = [u for u in undecided if u[0] < first.index]
         v.undecided = len(before)
-        v.cut_by = _main_bound(before)
+        v.cut_by = main_bound(before)
     else:
         v.tried = sum(p.tried for p in parts)
         v.undecided = len(undecided)
         if undecided:
             v.verdict = INCONCLUSIVE
-            v.cut_by = _main_bound(undecided)
+            v.cut_by = main_bound(undecided)
             if v.cut_by == "normalize":
                 v.reason = (f"{len(undecided)} of {v.tried} case(s) need a normalised "
                             "translation where it is undefined (see its normalize part)")
@@ -331,6 +334,10 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
             examples = [p.example for p in parts if p.example is not None]
             if examples:
                 v.undecided_example = min(examples, key=lambda f: f.index).counterexample
+    if v.verdict == HOLDS and parts and all(p.premise for p in parts) and \
+            sum(p.cases for p in parts) == 0:
+        v.vacuous = True
+        v.reason = "no term within the bounds has a step"
     if premise_cut:
         v.notes.append(f"the premise's reduction graph was cut for {premise_cut} value(s); the "
                        "claim was checked only for the N it generated")
@@ -341,7 +348,7 @@ def _collect_all(parts: list[Partial]) -> bool:
     return any(p.collect_all for p in parts)
 
 
-def _main_bound(undecided: list[tuple[int, str]]) -> str | None:
+def main_bound(undecided: list[tuple[int, str]]) -> str | None:
     if not undecided:
         return None
     counts = Counter(b for _, b in undecided)
@@ -376,6 +383,7 @@ def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bou
     v = Verdict(name, file, text, HOLDS, bounds, tried=met, engine=engine)
     if several and example is not None:
         v.verdict = REFUTED
+        v.tried = example["index"] + 1  # as for every refuted claim: the case's position
         if example.get("cycles"):
             evidence = (f"group {group} has no normal form from {example['term']}: its reduction "
                         "graph is complete and every path cycles")

@@ -76,6 +76,9 @@ def _summary(v: Verdict) -> str:
     secs = f"{v.seconds:.2f}s"
     if v.scope == "all" and v.verdict == HOLDS:
         return f"proved for all terms ({v.reason})  {secs}"
+    if v.verdict == HOLDS and v.vacuous:
+        return (f"vacuously: {v.reason or 'the premise generated no case'} ({v.tried} value(s) "
+                f"up to {_bounds_text(v)})  [{v.engine}]  {secs}")
     if v.verdict == HOLDS:
         return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}"
     if v.verdict == REFUTED and v.counterexample is None:

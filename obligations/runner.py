@@ -26,7 +26,7 @@ from rules.translate import TranslationFailure
 
 from . import bounded
 from .claims import Obligation, plan
-from .verdict import HOLDS, INCONCLUSIVE, Verdict, worst
+from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict, worst
 
 
 @dataclass
@@ -140,6 +140,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         else:
             v.part_of = rec["claim"]
             parts_v.append(v)
+    if head_v is not None:
+        _refuted_by_part(head_v, parts_v, relational)
     if head_v is None:
         head_v = Verdict(rec["claim"], rec["file"], rec["formula"],
                          worst([v.verdict for v in parts_v]), b,
@@ -154,6 +156,26 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
             head_v.scope = "all"
             head_v.reason = "every part is proved for all terms"
     return [head_v, *parts_v]
+
+
+def _refuted_by_part(head: Verdict, parts: list[Verdict],
+                     relational: list[bounded.Partial]) -> None:
+    """A claim whose own cases hold or are undecided is refuted by a refuted part (its
+    ``normalize(T)`` part), as a shorthand is by its parts; ``tried`` is then the position of
+    the part's counterexample, and only the undecided cases before it count."""
+    if head.verdict not in (HOLDS, INCONCLUSIVE):
+        return
+    bad = next((v for v in parts if v.verdict == REFUTED), None)
+    if bad is None:
+        return
+    head.verdict = REFUTED
+    head.reason = f"part {bad.name} is refuted"
+    head.tried = bad.tried
+    mine = [u for p in relational if p.name == head.name for u in p.undecided]
+    before = sorted(u for u in mine if u[0] < bad.tried - 1)
+    head.undecided = len(before)
+    head.cut_by = bounded.main_bound(before)
+    head.undecided_example = None
 
 
 def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions

@@ -64,6 +64,8 @@ class Verdict:
     notes: list[str] = field(default_factory=list)
     part_of: str | None = None
     undecided_example: Counterexample | None = None  # the smallest undecided case
+    # holds because a premise generated no case at all (no term within the bounds has a step)
+    vacuous: bool = False
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -80,6 +82,8 @@ class Verdict:
             "engine": self.engine,
             "counterexample": self.counterexample.to_json() if self.counterexample else None,
         }
+        if self.vacuous:
+            out["vacuous"] = True
         if self.reason is not None:
             out["reason"] = self.reason
         if self.more:
@@ -109,6 +113,7 @@ class Verdict:
             notes=list(data.get("notes", [])), part_of=data.get("part_of"),
             undecided_example=(Counterexample.from_json(data["undecided_example"])
                                if data.get("undecided_example") else None),
+            vacuous=bool(data.get("vacuous", False)),
         )
 
 

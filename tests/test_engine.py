@@ -68,12 +68,20 @@ def test_cut_graphs_make_a_claim_inconclusive_naming_the_bound(verdicts) -> None
     assert ex.terms["M"] == "f(x)" and ex.terms["N"] == "f(s(x))"
 
 
-def test_normalize_part_is_refuted_and_the_claim_inconclusive(verdicts) -> None:
+def test_a_refuted_normalize_part_refutes_its_claim(verdicts) -> None:
+    """The claim used to stay inconclusive (exit 3) while JUnit counted the part's failure.
+
+    Family: a claim's verdict against its parts'.  Checked: shorthand heads (the worst of
+    their parts, unchanged), a head refuted by its own case first (keeps its own
+    counterexample: test_own_counterexample_wins_over_the_normalize_part), the part's
+    ``tried`` (now the position of its counterexample, as for every refuted claim)."""
     part = verdicts["forked.normalize(into_fork)"]
     assert part.verdict == "refuted" and part.part_of == "forked"
     assert part.counterexample.terms["normal_forms"] == ["a", "b"]
+    assert part.tried == 1  # M = x, the first term, builds pick(x)
     head = verdicts["forked"]
-    assert head.verdict == "inconclusive" and head.cut_by == "normalize"
+    assert head.verdict == "refuted" and head.reason == "part forked.normalize(into_fork) is refuted"
+    assert head.tried == 1 and head.undecided == 0 and head.counterexample is None
 
 
 def test_steps_bound_from_the_command_line_wins(spec) -> None:
@@ -178,3 +186,39 @@ def test_search_agrees_with_the_graph_builder_on_completeness() -> None:
                 assert r.found == (reaches(g, t) is not None), (s, t, steps)
                 if not r.found:
                     assert r.complete == g.graph["complete"], (s, t, steps)
+
+
+@pytest.fixture(scope="module")
+def parts():
+    spec = load_file(DATA / "parts.calc")
+    out, _ = run_claims(spec, list(spec.claims), RunOptions())
+    return {v.name: v for v in out}
+
+
+def test_own_counterexample_wins_over_the_normalize_part(parts) -> None:
+    head, part = parts["own_first"], parts["own_first.normalize(into_fork)"]
+    assert part.verdict == "refuted" and part.tried == 1
+    assert head.verdict == "refuted" and head.counterexample.terms["M"] == "lam(x.x)"
+    assert head.tried == 2 and head.reason is None
+
+
+def test_a_premise_that_generates_nothing_holds_vacuously(parts) -> None:
+    """`M -> N implies ...` where no term has a step used to say "holds, 8 cases".
+
+    Family: every premise relation and every way a premise claim is reported.  Checked:
+    ->, ->+ (vacuous), ->* (M itself is generated: never vacuous), the mono parts of a
+    shorthand (vacuous parts, the head's verdict unchanged), the text line and the JSON
+    field (test_cli), and that a claim with generated cases has no such field."""
+    from obligations.report import text_report
+
+    for name in ("idle", "idle_plus", "iso.mono(F)", "iso.mono(G)"):
+        v = parts[name]
+        assert v.verdict == "holds" and v.vacuous, name
+        assert v.to_json()["vacuous"] is True
+        assert v.reason == "no term within the bounds has a step"
+    for name in ("busy", "iso", "iso.exact_unit"):
+        assert parts[name].verdict == "holds" and not parts[name].vacuous, name
+        assert "vacuous" not in parts[name].to_json()
+    text = text_report("parts.calc", [parts["idle"], parts["busy"]])
+    assert "holds        idle  vacuously: no term within the bounds has a step" in text
+    assert "vacuously" not in text.split("\n")[2]

@@ -24,6 +24,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rules.enumerate import enumerate_tuples
+from rules.errors import CalcError
 from rules.notation import parse_term, print_abstract
 from rules.rewrite import paused_gc, position_text, reaches, reduction_graph, reducts
 from rules.spec import Atom, Bounds, Calculus, Implies, Spec
@@ -32,7 +33,7 @@ from rules.translate import Undefined
 
 from .claims import Obligation
 from .evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome, search
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
+from .verdict import ERROR, HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
 
 ALL_LIMIT = 10
 
@@ -65,6 +66,8 @@ class Partial:
     collect_all: bool = False
     example: Failure | None = None  # the first undecided case, to show the user
     premise: bool = False  # the obligation has a premise (cases are the N it generates)
+    # a run-time failure that stopped this shard: {"index", "message", "at", "hint", "case"}
+    error: dict[str, Any] | None = None
 
     def to_json(self) -> dict[str, Any]:
         return {"tried": self.tried, "cases": self.cases,
@@ -77,7 +80,7 @@ class Partial:
                 "example": ({"index": self.example.index,
                              "counterexample": self.example.counterexample.to_json()}
                             if self.example else None),
-                "premise": self.premise}
+                "premise": self.premise, "error": self.error}
 
     @classmethod
     def from_json(cls, name: str, d: dict[str, Any]) -> Partial:
@@ -90,7 +93,7 @@ class Partial:
                    Failure(d["example"]["index"],
                            Counterexample.from_json(d["example"]["counterexample"]))
                    if d.get("example") else None,
-                   d.get("premise", False))
+                   d.get("premise", False), d.get("error"))
 
 
 Progress = Callable[[int], None]
@@ -127,7 +130,11 @@ def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Ato
         if progress is not None and part.tried % 64 == 0:
             progress(part.tried)
         ev.case_norm = {}
-        outcome, case_env, step, seen = _decide_tuple(ev, f, env, part)
+        try:
+            outcome, case_env, step, seen = _decide_tuple(ev, f, env, part)
+        except _CaseError as e:
+            part.error = _error_record(spec, ob, bounds, index, e)
+            break
         for trn, (code, undefined) in ev.case_norm.items():
             part.normalize.setdefault(trn, []).append([index, code])
             if code == 2 and trn not in part.several:
@@ -145,30 +152,78 @@ def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Ato
                 break
 
 
+class _CaseError(Exception):
+    """A run-time failure (a :class:`CalcError`) while one case was decided, with the case."""
+
+    def __init__(self, error: CalcError, case: dict[str, Term]):
+        super().__init__(str(error))
+        self.error = error
+        self.case = case
+
+
 def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
     """The outcome of the cases of one quantified tuple (several, for a premise)."""
     if isinstance(f, Atom):
         part.cases += 1
         seen: dict = {}
-        return ev.decide(f, env, seen), env, None, seen
+        try:
+            return ev.decide(f, env, seen), env, None, seen
+        except CalcError as e:
+            raise _CaseError(e, env) from e
     undecided: tuple | None = None
     m = env[f.premise.left.name]
     nname = f.premise.right.name  # type: ignore[union-attr]
-    for value, rule, pos in ev.generated(f.premise, m):
-        part.cases += 1
-        case = dict(env)
-        case[nname] = value
-        seen = {}
-        o = ev.decide(f.conclusion, case, seen)
-        if o.status == FAIL:
-            return o, case, (rule, pos), seen
-        if o.status == UNDECIDED and undecided is None:
-            undecided = (o, case, (rule, pos), seen)
+    case = env
+    try:
+        for value, rule, pos in ev.generated(f.premise, m):
+            part.cases += 1
+            case = dict(env)
+            case[nname] = value
+            seen = {}
+            o = ev.decide(f.conclusion, case, seen)
+            if o.status == FAIL:
+                return o, case, (rule, pos), seen
+            if o.status == UNDECIDED and undecided is None:
+                undecided = (o, case, (rule, pos), seen)
+            case = env  # an error in generating the next N belongs to M alone
+    except CalcError as e:
+        raise _CaseError(e, case) from e
     if ev.premise_cut:
         part.premise_cut += 1
     if undecided is not None:
         return undecided
     return Outcome(OK), env, None, {}
+
+
+def _error_record(spec: Spec, ob: Obligation, bounds: Bounds, index: int,
+                  e: _CaseError) -> dict[str, Any]:
+    """What the report says of a run-time failure: the message, where in the rule file, and
+    the case (the first, so a smallest, that met it).  The case is decided again with empty
+    memo tables first, and must fail the same way."""
+    calcs = {m.name: m.calculus for m in ob.quantified}
+    f = ob.formula
+    if isinstance(f, Implies):
+        calcs[f.premise.right.name] = f.premise.left.calculus  # type: ignore[union-attr]
+    terms = {k: print_abstract(spec.calculi[calcs[k]], v) for k, v in e.case.items()}
+    size = sum(e.case[m.name].size for m in ob.quantified)
+    problem = e.error.problems[0]
+    pos = problem.pos or ob.claim.pos  # a missing case has no equation to point at
+    again = Evaluator(spec, bounds)
+    try:
+        if isinstance(f, Implies) and len(e.case) > len(ob.quantified):
+            again.decide(f.conclusion, dict(e.case), {})
+        else:
+            _decide_tuple(again, f, dict(e.case), Partial(ob.name))
+    except (CalcError, _CaseError) as x:
+        err = x.error if isinstance(x, _CaseError) else x
+        if err.problems[0].message != problem.message:
+            raise InternalError(f"re-check: the error of {ob.name} changed to "
+                                f"{err.problems[0].message}") from None
+    else:
+        raise InternalError(f"re-check: the error of {ob.name} did not happen again") from None
+    return {"index": index, "message": problem.message,
+            "at": str(pos) if pos is not None and pos.line > 0 else None,
+            "hint": problem.hint, "case": {"size": size, "terms": terms}}
 
 
 def _several_example(spec: Spec, trn: str, index: int, u: Undefined | None,
@@ -305,6 +360,21 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
     seconds = max((p.seconds for p in parts), default=0.0)
     v = Verdict(name, file, text, HOLDS, bounds, engine=engine, seconds=seconds)
     premise_cut = sum(p.premise_cut for p in parts)
+    error = min((p.error for p in parts if p.error is not None), key=lambda e: e["index"],
+                default=None)
+    if error is not None:
+        # a single run stops at the error: what other shards saw after it does not count
+        failures = [f for f in failures if f.index < error["index"]]
+        undecided = [u for u in undecided if u[0] < error["index"]]
+        if not failures or _collect_all(parts):
+            v.verdict = ERROR
+            v.tried = error["index"] + 1
+            v.error = {k: error[k] for k in ("message", "at", "hint", "case")}
+            v.reason = error["message"]
+            v.undecided = len(undecided)
+            v.cut_by = main_bound(undecided)
+            v.more = [f.counterexample for f in failures[:ALL_LIMIT]]
+            return v
     if failures:
         first = failures[0]
         v.verdict = REFUTED
@@ -404,9 +474,10 @@ def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bou
 
 def first_failure(parts: list[Partial], collect_all: bool) -> int | None:
     """The index an obligation's verdict stops at (its first counterexample), if any."""
+    errors = [p.error["index"] for p in parts if p.error is not None]
     if collect_all:
-        return None
-    indices = [f.index for p in parts for f in p.failures]
+        return min(errors) if errors else None
+    indices = [f.index for p in parts for f in p.failures] + errors
     return min(indices) if indices else None
 
 

@@ -49,6 +49,7 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
     # a shorthand's own entry has no evidence of its own: its parts carry it
     details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")
                and (v.counterexample is not None or v.undecided_example is not None
+                    or v.error is not None
                     or v.part_of is not None or not _has_parts(v, verdicts))]
     for v in details:
         lines.append("")
@@ -90,6 +91,10 @@ def _summary(v: Verdict) -> str:
     if v.verdict == INCONCLUSIVE:
         why = v.reason or f"{v.undecided} case(s) cut by {v.cut_by}"
         return f"{why}  [{v.engine}]  {secs}"
+    if v.error is not None:
+        case = v.error.get("case")
+        where = f" on a case of size {case['size']}" if case and case.get("size") else ""
+        return f"{v.error['message']}{where} after {v.tried} case(s)  [{v.engine}]  {secs}"
     return v.reason or ""
 
 
@@ -99,7 +104,9 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
     out = [f"{head}  ({v.file})"]
     out.append(f"  formula:  {v.formula}")
     out.append(f"  bounds:   {_bounds_text(v)}")
-    if v.reason and v.verdict != REFUTED:
+    if v.error is not None:
+        out.extend(_error_lines(v.error))
+    elif v.reason and v.verdict != REFUTED:
         out.append(f"  why:      {v.reason}")
     ces = v.more or ([v.counterexample] if v.counterexample else [])
     for i, ce in enumerate(ces):
@@ -128,6 +135,22 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
             out.append(f"  undecided: {ex.evidence}")
     for n in v.notes:
         out.append(f"  note:     {n}")
+    return out
+
+
+def _error_lines(error: dict[str, Any]) -> list[str]:
+    """A run-time failure: the message, where in the rule file, the case that met it."""
+    out = [f"  error:    {error['message']}"]
+    if error.get("at"):
+        out.append(f"  at:       {error['at']}")
+    case = error.get("case")
+    if case:
+        out.append("  case" + (f" (size {case['size']}):" if case.get("size") else ":"))
+        keyw = max((len(k) for k in case["terms"]), default=1)
+        for k, val in case["terms"].items():
+            out.append(f"    {k:<{keyw}} = {val}")
+    if error.get("hint"):
+        out.append(f"  hint:     {error['hint']}")
     return out
 
 

@@ -20,13 +20,12 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rules.enumerate import count_tuples
-from rules.errors import EncodingError
+from rules.errors import CalcError, EncodingError, UsageError
 from rules.spec import Bounds, Claim, Spec
-from rules.translate import TranslationFailure
 
 from . import bounded
 from .claims import Obligation, plan
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict, worst
+from .verdict import ERROR, HOLDS, INCONCLUSIVE, REFUTED, Verdict, worst
 
 
 @dataclass
@@ -52,13 +51,12 @@ def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions
     for claim in claims:
         try:
             rec = claim_records(spec, claim, opts)
-        except TranslationFailure as e:
-            # a missing case met at run time: say which claim met it, and where it is
-            for p in e.problems:
-                p.message = f"claim {claim.name}: {p.message}"
-                if p.pos is None:
-                    p.pos = claim.pos
-            raise
+        except (UsageError, EncodingError):
+            raise  # the command line asked for what cannot be done: stop the run
+        except CalcError as e:
+            # a run-time failure outside the cases (the enumeration makes its own, with the
+            # case): this claim's error verdict, and the run goes on
+            rec = _error_record(spec, claim, opts, e)
         records[claim.name] = rec
         out.extend(finish_claim(rec))
     return out, records
@@ -96,6 +94,22 @@ def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
             obs.append({**base, "kind": "fixed", "verdict": v.to_json()})
     return {"claim": claim.name, "file": claim.file, "formula": claim.text,
             "bounds": b.as_dict(), "shorthand": p.head is None, "obligations": obs,
+            "shard": list(opts.shard) if opts.shard else None}
+
+
+def _error_record(spec: Spec, claim: Claim, opts: RunOptions, e: CalcError) -> dict[str, Any]:
+    """The record of a claim that a run-time failure stopped before any case could be named."""
+    problem = e.problems[0]
+    pos = problem.pos or claim.pos
+    b = claim_bounds(spec, claim, opts)
+    v = Verdict(claim.name, claim.file, claim.text, ERROR, b, reason=problem.message)
+    v.error = {"message": problem.message,
+               "at": str(pos) if pos is not None and pos.line > 0 else None,
+               "hint": problem.hint, "case": None}
+    ob = {"name": claim.name, "file": claim.file, "formula": claim.text, "head": True,
+          "kind": "fixed", "verdict": v.to_json()}
+    return {"claim": claim.name, "file": claim.file, "formula": claim.text,
+            "bounds": b.as_dict(), "shorthand": False, "obligations": [ob],
             "shard": list(opts.shard) if opts.shard else None}
 
 
@@ -150,7 +164,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         head_v.undecided = sum(v.undecided for v in parts_v)
         bad = [v for v in parts_v if v.verdict == head_v.verdict and v.verdict != HOLDS]
         if bad:
-            head_v.reason = f"part {bad[0].name} is {bad[0].verdict}"
+            head_v.reason = (f"part {bad[0].name} is {bad[0].verdict}" if bad[0].verdict != ERROR
+                             else f"part {bad[0].name} ended in an error")
             head_v.cut_by = bad[0].cut_by
         if parts_v and all(v.scope == "all" for v in parts_v):
             head_v.scope = "all"

@@ -66,6 +66,8 @@ class Verdict:
     undecided_example: Counterexample | None = None  # the smallest undecided case
     # holds because a premise generated no case at all (no term within the bounds has a step)
     vacuous: bool = False
+    # the error verdict's run-time failure: {"message", "at", "hint", "case": {"size", "terms"}}
+    error: dict[str, Any] | None = None
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -82,6 +84,8 @@ class Verdict:
             "engine": self.engine,
             "counterexample": self.counterexample.to_json() if self.counterexample else None,
         }
+        if self.error is not None:
+            out["error"] = dict(self.error)
         if self.vacuous:
             out["vacuous"] = True
         if self.reason is not None:
@@ -114,6 +118,7 @@ class Verdict:
             undecided_example=(Counterexample.from_json(data["undecided_example"])
                                if data.get("undecided_example") else None),
             vacuous=bool(data.get("vacuous", False)),
+            error=dict(data["error"]) if data.get("error") else None,
         )
 
 

@@ -26,7 +26,7 @@ from typing import Any
 from rules.enumerate import enumerate_tuples
 from rules.errors import CalcError
 from rules.notation import parse_term, print_abstract
-from rules.rewrite import paused_gc, position_text, reaches, reduction_graph, reducts
+from rules.rewrite import iter_reducts, paused_gc, position_text, reaches, reduction_graph, reducts
 from rules.spec import Atom, Bounds, Calculus, Implies, Spec
 from rules.terms import Term
 from rules.translate import Undefined
@@ -319,7 +319,7 @@ def recheck(spec: Spec, ob: Obligation, bounds: Bounds, env: dict[str, Term],
         calc = spec.calculi[rel.calculus or f.premise.left.calculus]
         if rel.kind in ("->", "->="):
             ok = (rel.kind == "->=" and m is n) or any(
-                s.result is n for s in reducts(calc, m, rel.group))
+                s.result is n for s in iter_reducts(calc, m, rel.group))
         else:
             ok = search(calc, m, n, bounds.steps, bounds.nodes, rel.group,
                         plus=rel.kind == "->+").found

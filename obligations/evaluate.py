@@ -16,7 +16,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from rules.notation import print_abstract
-from rules.rewrite import iter_reducts, join, position_text, reduction_graph, reducts
+from rules.rewrite import iter_reducts, join, position_text, reduction_graph
 from rules.sorts import grammar
 from rules.spec import Atom, Bounds, Calculus, EMeta, Expr, Relation, Spec
 from rules.terms import Node, Term, name, open_body
@@ -52,7 +52,8 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
     """Is ``target`` reachable from ``source`` (by at least one step when ``plus``)?
 
     Stops at the first sight of the target; otherwise explores everything
-    within ``steps`` and ``nodes`` and says whether that was all.
+    within ``steps`` and ``nodes`` and says whether that was all.  A term that
+    would go beyond ``nodes`` stops the search at once, cut by "nodes".
     """
     parent: dict[Term, tuple[Term | None, str, tuple[int, ...]]] = {source: (None, "", ())}
     depth = {source: 0}
@@ -90,9 +91,9 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
             if r in parent:
                 continue
             if len(parent) >= nodes:
-                complete = False
-                cut_by = "nodes"
-                continue
+                # the graph is full: stop at once, as the graph builder does, building no
+                # further reduct (a term's reducts can be far more than the bound on nodes)
+                return Reach(False, [], len(parent), False, "nodes", normal)
             parent[r] = (t, s.rule, s.position)
             depth[r] = depth[t] + 1
             todo.append(r)
@@ -260,13 +261,18 @@ class Evaluator:
         if rel.kind in ("->", "->="):
             if rel.kind == "->=" and left is right:
                 return Outcome(OK)
-            steps = reducts(calc, left, rel.group)
-            if any(s.result is right for s in steps):
-                return Outcome(OK)
-            shown = [print_abstract(calc, s.result) for s in steps[:5]]
+            count = 0
+            first: list[Term] = []
+            for s in iter_reducts(calc, left, rel.group):  # one at a time: there may be many
+                if s.result is right:
+                    return Outcome(OK)
+                count += 1
+                if count <= 5:
+                    first.append(s.result)
+            shown = [print_abstract(calc, t) for t in first]
             return Outcome(FAIL, evidence=(
-                f"{rt} is not a one-step reduct of {lt}" + (f" (it has {len(steps)}: "
-                + ", ".join(shown) + (", ..." if len(steps) > 5 else "") + ")" if steps
+                f"{rt} is not a one-step reduct of {lt}" + (f" (it has {count}: "
+                + ", ".join(shown) + (", ..." if count > 5 else "") + ")" if count
                 else " (it has none: a normal form)")),
                 details={"reducts": shown, **self._join_details(calc, left, right, rel)})
         if rel.kind in ("->*", "->+"):
@@ -343,7 +349,7 @@ class Evaluator:
         if rel.kind in ("->", "->="):
             if rel.kind == "->=":
                 yield m, "", ()
-            for s in reducts(calc, m, rel.group):
+            for s in iter_reducts(calc, m, rel.group):
                 yield s.result, s.rule, s.position
             return
         b = self.bounds

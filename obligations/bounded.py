@@ -59,7 +59,8 @@ class Partial:
     undecided: list[tuple[int, str]] = field(default_factory=list)  # (index, bound)
     premise_cut: int = 0
     seconds: float = 0.0
-    # translation -> [[case index, 0 fine | 1 cut | 2 several normal forms], ...]
+    # translation -> [[case index, 1 cut by steps | 3 by nodes | 2 undefined], ...], with the
+    # fine cases as runs [[first index, 0, count, stride], ...] (see _note_normalize)
     normalize: dict[str, list[list[int]]] = field(default_factory=dict)
     # translation -> the smallest-index case where the group had several normal forms
     several: dict[str, dict[str, Any]] = field(default_factory=dict)
@@ -136,7 +137,7 @@ def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Ato
             part.error = _error_record(spec, ob, bounds, index, e)
             break
         for trn, (code, undefined) in ev.case_norm.items():
-            part.normalize.setdefault(trn, []).append([index, code])
+            _note_normalize(part.normalize.setdefault(trn, []), index, code, n)
             if code == 2 and trn not in part.several:
                 part.several[trn] = _several_example(spec, trn, index, undefined, bounds)
         if outcome.status == UNDECIDED:
@@ -159,6 +160,21 @@ class _CaseError(Exception):
         super().__init__(str(error))
         self.error = error
         self.case = case
+
+
+def _note_normalize(entries: list[list[int]], index: int, code: int, stride: int) -> None:
+    """Record a case's normalisation outcome.  The cases where it was fine (code 0, nearly
+    all) are kept as runs ``[first index, 0, count, stride]`` of consecutive cases of this
+    shard, so that the record does not grow with the number of cases; the others as
+    ``[index, code]``."""
+    if code == 0:
+        last = entries[-1] if entries else None
+        if last is not None and len(last) == 4 and last[0] + last[2] * stride == index:
+            last[2] += 1
+        else:
+            entries.append([index, 0, 1, stride])
+    else:
+        entries.append([index, code])
 
 
 def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
@@ -438,7 +454,14 @@ def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bou
     example = None
     for p in parts:
         limit = cutoffs.get(p.name)
-        for index, code in p.normalize.get(trn, []):
+        for entry in p.normalize.get(trn, []):
+            index, code = entry[0], entry[1]
+            if len(entry) == 4:  # a run of cases where the group was fine
+                count, stride = entry[2], entry[3]
+                if limit is not None:
+                    count = min(count, max(0, (limit - index) // stride + 1))
+                met += count
+                continue
             if limit is not None and index > limit:
                 continue
             met += 1

@@ -222,3 +222,27 @@ def test_a_premise_that_generates_nothing_holds_vacuously(parts) -> None:
     text = text_report("parts.calc", [parts["idle"], parts["busy"]])
     assert "holds        idle  vacuously: no term within the bounds has a step" in text
     assert "vacuously" not in text.split("\n")[2]
+
+
+def test_normalize_records_do_not_grow_with_the_cases(parts) -> None:
+    """The fine cases of a normalised translation are kept as runs, not one entry each
+    (memory must not grow with the number of cases); the part still counts every case,
+    and shards (with their strides) give the same count."""
+    from obligations import bounded
+    from obligations.claims import plan
+
+    spec = load_file(DATA / "parts.calc")
+    claim = next(c for c in spec.claims if c.name == "tidy")
+    head = plan(spec, claim).head
+    b = spec.claim_bounds(claim, Bounds())
+    whole = bounded.run_shard(spec, head, b)
+    assert whole.normalize["to_c"] == [[0, 0, whole.tried, 1]]
+    shards = [bounded.run_shard(spec, head, b, (i, 3)) for i in (1, 2, 3)]
+    assert all(len(p.normalize["to_c"]) == 1 for p in shards)
+    for limit in (None, 0, 5, 17):
+        cut = {head.name: limit}
+        one = bounded.normalize_verdict("n", "", "", "to_c", "tidy", b, [whole], cut)
+        three = bounded.normalize_verdict("n", "", "", "to_c", "tidy", b, shards, cut)
+        expect = whole.tried if limit is None else min(whole.tried, limit + 1)
+        assert one.verdict == three.verdict == "holds" and one.tried == three.tried == expect
+    assert parts["tidy.normalize(to_c)"].tried == whole.tried

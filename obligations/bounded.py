@@ -211,11 +211,19 @@ def _decide_tuple(ev: Evaluator, f, env: dict[str, Term], part: Partial):
     return Outcome(OK), env, None, {}
 
 
+def error_record(spec: Spec, ob: Obligation, bounds: Bounds, index: int, error: CalcError,
+                 case: dict[str, Term]) -> dict[str, Any]:
+    """What the report says of a run-time failure met on ``case`` (the quantified
+    metavariables' values, and a premise's N where one was generated): the message, where in
+    the rule file, the hint and the case, as the ``error`` field of the verdict (plus
+    ``index``, the case's position).  The case is decided again with empty memo tables
+    first, and must fail the same way (else InternalError).  The solver engine uses it too,
+    so that both engines report a run-time failure alike."""
+    return _error_record(spec, ob, bounds, index, _CaseError(error, case))
+
+
 def _error_record(spec: Spec, ob: Obligation, bounds: Bounds, index: int,
                   e: _CaseError) -> dict[str, Any]:
-    """What the report says of a run-time failure: the message, where in the rule file, and
-    the case (the first, so a smallest, that met it).  The case is decided again with empty
-    memo tables first, and must fail the same way."""
     calcs = {m.name: m.calculus for m in ob.quantified}
     f = ob.formula
     if isinstance(f, Implies):

@@ -56,7 +56,8 @@ class Partial:
     tried: int = 0
     cases: int = 0
     failures: list[Failure] = field(default_factory=list)
-    undecided: list[tuple[int, str]] = field(default_factory=list)  # (index, bound)
+    # runs of undecided cases: (first index, bound, count, stride); see _note_undecided
+    undecided: list[tuple] = field(default_factory=list)
     premise_cut: int = 0
     seconds: float = 0.0
     # translation -> [[case index, 1 cut by steps | 3 by nodes | 2 undefined], ...], with the
@@ -88,7 +89,7 @@ class Partial:
         return cls(name, d["tried"], d["cases"],
                    [Failure(f["index"], Counterexample.from_json(f["counterexample"]))
                     for f in d["failures"]],
-                   [(u[0], u[1]) for u in d["undecided"]], d["premise_cut"], d["seconds"],
+                   [tuple(u) for u in d["undecided"]], d["premise_cut"], d["seconds"],
                    d.get("normalize", {}), d.get("several", {}),
                    d.get("collect_all", False),
                    Failure(d["example"]["index"],
@@ -141,7 +142,7 @@ def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Ato
             if code == 2 and trn not in part.several:
                 part.several[trn] = _several_example(spec, trn, index, undefined, bounds)
         if outcome.status == UNDECIDED:
-            part.undecided.append((index, outcome.cut_by or "steps"))
+            _note_undecided(part.undecided, index, outcome.cut_by or "steps", n)
             if part.example is None:
                 part.example = Failure(index, build_counterexample(spec, ob, ev, case_env, seen,
                                                                    outcome, step))
@@ -160,6 +161,37 @@ class _CaseError(Exception):
         super().__init__(str(error))
         self.error = error
         self.case = case
+
+
+def _note_undecided(entries: list[tuple], index: int, bound: str, stride: int) -> None:
+    """Record an undecided case: consecutive cases of this shard cut by the same bound make
+    one run ``(first index, bound, count, stride)``, so that the record does not grow with
+    the number of cases."""
+    last = entries[-1] if entries else None
+    if (last is not None and len(last) == 4 and last[1] == bound
+            and last[0] + last[2] * stride == index):
+        entries[-1] = (last[0], bound, last[2] + 1, stride)
+    else:
+        entries.append((index, bound, 1, stride))
+
+
+def undecided_tally(entries, below: int | None = None) -> tuple[int, str | None]:
+    """How many undecided cases have an index below ``below`` (all when None), and the bound
+    that cut most of them (on a tie, the one that cut the earliest case).  An entry is a run
+    ``(first index, bound, count, stride)`` or a single ``(index, bound)``."""
+    per: dict[str, list[int]] = {}  # bound -> [count, first index]
+    for e in entries:
+        start, bound = e[0], e[1]
+        count, stride = (e[2], e[3]) if len(e) == 4 else (1, 1)
+        if below is not None:
+            count = min(count, max(0, -(-(below - start) // stride)))
+        if count:
+            c = per.setdefault(bound, [0, start])
+            c[0] += count
+            c[1] = min(c[1], start)
+    total = sum(c[0] for c in per.values())
+    main = min(per, key=lambda b: (-per[b][0], per[b][1])) if per else None
+    return total, main
 
 
 def _note_normalize(entries: list[list[int]], index: int, code: int, stride: int) -> None:
@@ -380,7 +412,7 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
             engine: str = "enum") -> Verdict:
     """The verdict of the whole enumeration from its shards' partials."""
     failures = sorted((f for p in parts for f in p.failures), key=lambda f: f.index)
-    undecided = sorted(u for p in parts for u in p.undecided)
+    undecided = [u for p in parts for u in p.undecided]
     seconds = max((p.seconds for p in parts), default=0.0)
     v = Verdict(name, file, text, HOLDS, bounds, engine=engine, seconds=seconds)
     premise_cut = sum(p.premise_cut for p in parts)
@@ -389,14 +421,12 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
     if error is not None:
         # a single run stops at the error: what other shards saw after it does not count
         failures = [f for f in failures if f.index < error["index"]]
-        undecided = [u for u in undecided if u[0] < error["index"]]
         if not failures or _collect_all(parts):
             v.verdict = ERROR
             v.tried = error["index"] + 1
             v.error = {k: error[k] for k in ("message", "at", "hint", "case")}
             v.reason = error["message"]
-            v.undecided = len(undecided)
-            v.cut_by = main_bound(undecided)
+            v.undecided, v.cut_by = undecided_tally(undecided, error["index"])
             v.more = [f.counterexample for f in failures[:ALL_LIMIT]]
             return v
     if failures:
@@ -408,22 +438,19 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
         if _collect_all(parts) and len(collected) > 1:
             v.more = [f.counterexample for f in collected]
             v.tried = sum(p.tried for p in parts)
-            before = undecided
+            v.undecided, v.cut_by = undecided_tally(undecided)  # no error here: it returned
         else:
-            before = [u for u in undecided if u[0] < first.index]
-        v.undecided = len(before)
-        v.cut_by = main_bound(before)
+            v.undecided, v.cut_by = undecided_tally(undecided, first.index)
     else:
         v.tried = sum(p.tried for p in parts)
-        v.undecided = len(undecided)
-        if undecided:
+        v.undecided, v.cut_by = undecided_tally(undecided)
+        if v.undecided:
             v.verdict = INCONCLUSIVE
-            v.cut_by = main_bound(undecided)
             if v.cut_by == "normalize":
-                v.reason = (f"{len(undecided)} of {v.tried} case(s) need a normalised "
+                v.reason = (f"{v.undecided} of {v.tried} case(s) need a normalised "
                             "translation where it is undefined (see its normalize part)")
             else:
-                v.reason = (f"{len(undecided)} of {v.tried} case(s) were cut by the bound on "
+                v.reason = (f"{v.undecided} of {v.tried} case(s) were cut by the bound on "
                             f"{v.cut_by} before they could be settled")
             examples = [p.example for p in parts if p.example is not None]
             if examples:
@@ -440,13 +467,6 @@ def combine(name: str, file: str, text: str, bounds: Bounds, parts: list[Partial
 
 def _collect_all(parts: list[Partial]) -> bool:
     return any(p.collect_all for p in parts)
-
-
-def main_bound(undecided: list[tuple[int, str]]) -> str | None:
-    if not undecided:
-        return None
-    counts = Counter(b for _, b in undecided)
-    return counts.most_common(1)[0][0]
 
 
 def normalize_verdict(name: str, file: str, text: str, trn: str, group: str, bounds: Bounds,

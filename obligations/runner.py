@@ -187,9 +187,7 @@ def _refuted_by_part(head: Verdict, parts: list[Verdict],
     head.reason = f"part {bad.name} is refuted"
     head.tried = bad.tried
     mine = [u for p in relational if p.name == head.name for u in p.undecided]
-    before = sorted(u for u in mine if u[0] < bad.tried - 1)
-    head.undecided = len(before)
-    head.cut_by = bounded.main_bound(before)
+    head.undecided, head.cut_by = bounded.undecided_tally(mine, bad.tried - 1)
     head.undecided_example = None
 
 

@@ -246,3 +246,27 @@ def test_normalize_records_do_not_grow_with_the_cases(parts) -> None:
         expect = whole.tried if limit is None else min(whole.tried, limit + 1)
         assert one.verdict == three.verdict == "holds" and one.tried == three.tried == expect
     assert parts["tidy.normalize(to_c)"].tried == whole.tried
+
+
+def test_undecided_records_do_not_grow_with_the_cases(spec, verdicts) -> None:
+    """Consecutive undecided cases cut by one bound are one run, not one entry each; the
+    verdict counts them all, and shards give the same count and bound."""
+    from obligations import bounded
+    from obligations.claims import plan
+
+    claim = next(c for c in spec.claims if c.name == "back")
+    head = plan(spec, claim).head
+    b = spec.claim_bounds(claim, Bounds())
+    whole = bounded.run_shard(spec, head, b)
+    v = verdicts["back"]
+    assert v.verdict == "inconclusive" and v.undecided > 10
+    assert len(whole.undecided) < v.undecided  # runs
+    assert bounded.undecided_tally(whole.undecided) == (v.undecided, "steps")
+    shards = [bounded.run_shard(spec, head, b, (i, 3)) for i in (1, 2, 3)]
+    entries = [u for p in shards for u in p.undecided]
+    for below in (None, 0, 3, 10, 40):
+        singles = [(i, "steps") for (s, _, n, k) in whole.undecided for i in range(s, s + n * k, k)]
+        expect = len([i for i, _ in singles if below is None or i < below])
+        assert bounded.undecided_tally(entries, below)[0] == expect
+        assert bounded.undecided_tally(whole.undecided, below)[0] == expect
+        assert bounded.undecided_tally(singles, below)[0] == expect

@@ -58,10 +58,10 @@ class CaseCount:
 def count_cases(slots: Sequence[tuple[Calculus, str]], size: int, names: int,
                 share: int = 1, budget: float = COUNT_BUDGET,
                 clock: Callable[[], float] = time.perf_counter) -> CaseCount:
-    """The cases of :func:`rules.enumerate.enumerate_tuples` by total size, counted without
+    """The cases of :func:`calcscout.rules.core.enumerate.enumerate_tuples` by total size, counted without
     building a term, size by size until ``budget`` seconds are spent.
 
-    The same sums as :func:`rules.enumerate.count_tuples`, in one shared space
+    The same sums as :func:`calcscout.rules.core.enumerate.count_tuples`, in one shared space
     so that each size reuses the counts of the smaller ones; counting is fast
     for most grammars but grows quickly for large ones (minutes at size 14 for
     pairs of CPS terms), hence the budget.

@@ -23,10 +23,10 @@ from calcscout.obligations.claims import Obligation, plan
 from calcscout.obligations.engines import enumeration
 from calcscout.obligations.progress import CaseCount, count_cases
 from calcscout.obligations.stopping import INTERRUPTED, RunStopped, StopSignals
-from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, Verdict, worst
-from calcscout.rules.core.errors import EncodingError
+from calcscout.obligations.verdict import ERROR, HOLDS, INCONCLUSIVE, REFUTED, Verdict, worst
+from calcscout.obligations.workers import WorkerLost
+from calcscout.rules.core.errors import CalcError, EncodingError, UsageError
 from calcscout.rules.core.spec import Bounds, Claim, Spec
-from calcscout.rules.rewriting.translate import TranslationFailure
 
 
 @dataclass
@@ -57,17 +57,16 @@ def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions
     decided: list[tuple[Any, list[Verdict]]] = []  # appended in one step per claim
     try:
         for claim in claims:
-            try:
-                with opts.stop.armed() if opts.stop else nullcontext():
+            with opts.stop.armed() if opts.stop else nullcontext():
+                try:
                     rec = claim_records(spec, claim, opts)
-                    verdicts = finish_claim(rec)
-            except TranslationFailure as e:
-                # a missing case met at run time: say which claim met it, and where it is
-                for p in e.problems:
-                    p.message = f"claim {claim.name}: {p.message}"
-                    if p.pos is None:
-                        p.pos = claim.pos
-                raise
+                except (UsageError, EncodingError, WorkerLost):
+                    raise  # the command line asked for what cannot be done, or a worker died
+                except CalcError as e:
+                    # a run-time failure outside the cases (the enumeration makes its own,
+                    # with the case): this claim's error verdict, and the run goes on
+                    rec = _error_record(spec, claim, opts, e)
+                verdicts = finish_claim(rec)
             decided.append((rec, verdicts))
     except RunStopped as stop:
         done = list(decided)
@@ -147,6 +146,22 @@ def _empty_sorts(spec: Spec, ob: Obligation, b: Bounds) -> list[str]:
             if count_terms(spec.calculi[m.calculus], m.sort, b.size, b.names) == 0]
 
 
+def _error_record(spec: Spec, claim: Claim, opts: RunOptions, e: CalcError) -> dict[str, Any]:
+    """The record of a claim that a run-time failure stopped before any case could be named."""
+    problem = e.problems[0]
+    pos = problem.pos or claim.pos
+    b = claim_bounds(spec, claim, opts)
+    v = Verdict(claim.name, claim.file, claim.text, ERROR, b, reason=problem.message)
+    v.error = {"message": problem.message,
+               "at": str(pos) if pos is not None and pos.line > 0 else None,
+               "hint": problem.hint, "case": None}
+    ob = {"name": claim.name, "file": claim.file, "formula": claim.text, "head": True,
+          "kind": "fixed", "verdict": v.to_json()}
+    return {"claim": claim.name, "file": claim.file, "formula": claim.text,
+            "bounds": b.as_dict(), "shorthand": False, "obligations": [ob],
+            "shard": list(opts.shard) if opts.shard else None}
+
+
 def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
     """The engine for one relational obligation: enumeration unless smt or auto says otherwise
     (the rule of auto is in obligations/engines/smt.py)."""
@@ -195,6 +210,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         else:
             v.part_of = rec["claim"]
             parts_v.append(v)
+    if head_v is not None:
+        _refuted_by_part(head_v, parts_v, relational)
     if head_v is None:
         head_v = Verdict(rec["claim"], rec["file"], rec["formula"],
                          worst([v.verdict for v in parts_v]), b,
@@ -203,12 +220,31 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         head_v.undecided = sum(v.undecided for v in parts_v)
         bad = [v for v in parts_v if v.verdict == head_v.verdict and v.verdict != HOLDS]
         if bad:
-            head_v.reason = f"part {bad[0].name} is {bad[0].verdict}"
+            head_v.reason = (f"part {bad[0].name} is {bad[0].verdict}" if bad[0].verdict != ERROR
+                             else f"part {bad[0].name} ended in an error")
             head_v.cut_by = bad[0].cut_by
         if parts_v and all(v.scope == "all" for v in parts_v):
             head_v.scope = "all"
             head_v.reason = "every part is proved for all terms"
     return [head_v, *parts_v]
+
+
+def _refuted_by_part(head: Verdict, parts: list[Verdict],
+                     relational: list[enumeration.Partial]) -> None:
+    """A claim whose own cases hold or are undecided is refuted by a refuted part (its
+    ``normalize(T)`` part), as a shorthand is by its parts; ``tried`` is then the position of
+    the part's counterexample, and only the undecided cases before it count."""
+    if head.verdict not in (HOLDS, INCONCLUSIVE):
+        return
+    bad = next((v for v in parts if v.verdict == REFUTED), None)
+    if bad is None:
+        return
+    head.verdict = REFUTED
+    head.reason = f"part {bad.name} is refuted"
+    head.tried = bad.tried
+    mine = [u for p in relational if p.name == head.name for u in p.undecided]
+    head.undecided, head.cut_by = enumeration.undecided_tally(mine, bad.tried - 1)
+    head.undecided_example = None
 
 
 def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions

@@ -54,6 +54,7 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
     # a shorthand's own entry has no evidence of its own: its parts carry it
     details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")
                and (v.counterexample is not None or v.undecided_example is not None
+                    or v.error is not None
                     or v.part_of is not None or not _has_parts(v, verdicts))]
     for v in details:
         lines.append("")
@@ -81,6 +82,9 @@ def _summary(v: Verdict) -> str:
     secs = f"{v.seconds:.2f}s"
     if v.scope == "all" and v.verdict == HOLDS:
         return f"proved for all terms ({v.reason})  {secs}"
+    if v.verdict == HOLDS and v.vacuous and not (v.warning and v.tried == 0):
+        return (f"vacuously: {v.reason or 'the premise generated no case'} ({v.tried} value(s) "
+                f"up to {_bounds_text(v)})  [{v.engine}]  {secs}")
     if v.verdict == HOLDS:
         warn = f"  warning: {v.warning}" if v.warning else ""
         return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}{warn}"
@@ -93,6 +97,10 @@ def _summary(v: Verdict) -> str:
     if v.verdict == INCONCLUSIVE:
         why = v.reason or f"{v.undecided} case(s) cut by {v.cut_by}"
         return f"{why}  [{v.engine}]  {secs}"
+    if v.error is not None:
+        case = v.error.get("case")
+        where = f" on a case of size {case['size']}" if case and case.get("size") else ""
+        return f"{v.error['message']}{where} after {v.tried} case(s)  [{v.engine}]  {secs}"
     return v.reason or ""
 
 
@@ -107,7 +115,9 @@ def evidence_lines(v: Verdict, colour: bool = False, show: ShowTerm | None = Non
     out = [f"{head}  ({v.file})"]
     out.append(f"  formula:  {v.formula}")
     out.append(f"  bounds:   {_bounds_text(v)}")
-    if v.reason and v.verdict != REFUTED:
+    if v.error is not None:
+        out.extend(_error_lines(v.error))
+    elif v.reason and v.verdict != REFUTED:
         out.append(f"  why:      {v.reason}")
     if v.warning:
         out.append(f"  warning:  {v.warning}")
@@ -149,6 +159,22 @@ def evidence_lines(v: Verdict, colour: bool = False, show: ShowTerm | None = Non
             out.append(f"  undecided: {ex.evidence}")
     for n in v.notes:
         out.append(f"  note:     {n}")
+    return out
+
+
+def _error_lines(error: dict[str, Any]) -> list[str]:
+    """A run-time failure: the message, where in the rule file, the case that met it."""
+    out = [f"  error:    {error['message']}"]
+    if error.get("at"):
+        out.append(f"  at:       {error['at']}")
+    case = error.get("case")
+    if case:
+        out.append("  case" + (f" (size {case['size']}):" if case.get("size") else ":"))
+        keyw = max((len(k) for k in case["terms"]), default=1)
+        for k, val in case["terms"].items():
+            out.append(f"    {k:<{keyw}} = {val}")
+    if error.get("hint"):
+        out.append(f"  hint:     {error['hint']}")
     return out
 
 

@@ -13,19 +13,20 @@ the verdicts of an unsharded run.
 
 from __future__ import annotations
 
-import multiprocessing
 import time
 from collections.abc import Callable
+from contextlib import nullcontext
 from dataclasses import dataclass, field
 from typing import Any
 
 from calcscout.obligations.claims import Obligation, plan
 from calcscout.obligations.engines import enumeration
-from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, Verdict, worst
-from calcscout.rules.core.enumerate import count_tuples
-from calcscout.rules.core.errors import EncodingError
+from calcscout.obligations.progress import CaseCount, count_cases
+from calcscout.obligations.stopping import INTERRUPTED, RunStopped, StopSignals
+from calcscout.obligations.verdict import ERROR, HOLDS, INCONCLUSIVE, REFUTED, Verdict, worst
+from calcscout.obligations.workers import WorkerLost
+from calcscout.rules.core.errors import CalcError, EncodingError, UsageError
 from calcscout.rules.core.spec import Bounds, Claim, Spec, Terminating
-from calcscout.rules.rewriting.translate import TranslationFailure
 
 
 @dataclass
@@ -37,6 +38,8 @@ class RunOptions:
     engine: str = "enum"
     timeout: float | None = None
     progress: Callable[[str, int, int], None] | None = None  # (claim, done, total)
+    cases: Callable[[str, CaseCount], None] | None = None  # an obligation starts: its cases
+    stop: StopSignals | None = None  # signals and the time limit, in `check`
     book: Any = None  # the proof engine's results and lemmas (engines proof and auto)
 
 
@@ -46,26 +49,54 @@ def claim_bounds(spec: Spec, claim: Claim, opts: RunOptions) -> Bounds:
 
 def run_claims(spec: Spec, claims: list[Claim], opts: RunOptions
                ) -> tuple[list[Verdict], dict[str, Any]]:
-    """Verdicts for every claim and part, in report order, and every claim's records."""
-    out: list[Verdict] = []
-    records: dict[str, Any] = {}
+    """Verdicts for every claim and part, in report order, and every claim's records.
+
+    A stop request (``opts.stop``) raises :class:`RunStopped` carrying the
+    report so far: the claims decided keep their verdicts, the others are
+    inconclusive, cut by ``interrupted``.
+    """
+    decided: list[tuple[Any, list[Verdict]]] = []  # appended in one step per claim
     if opts.engine in ("proof", "auto") and opts.book is None:
         from calcscout.obligations.engines.lemmas import ProofBook
 
         opts.book = ProofBook(spec, opts.bounds)
-    for claim in claims:
-        try:
-            rec = claim_records(spec, claim, opts)
-        except TranslationFailure as e:
-            # a missing case met at run time: say which claim met it, and where it is
-            for p in e.problems:
-                p.message = f"claim {claim.name}: {p.message}"
-                if p.pos is None:
-                    p.pos = claim.pos
-            raise
-        records[claim.name] = rec
-        out.extend(finish_claim(rec))
-    return out, records
+    try:
+        for claim in claims:
+            with opts.stop.armed() if opts.stop else nullcontext():
+                try:
+                    rec = claim_records(spec, claim, opts)
+                except (UsageError, EncodingError, WorkerLost):
+                    raise  # the command line asked for what cannot be done, or a worker died
+                except CalcError as e:
+                    # a run-time failure outside the cases (the enumeration makes its own,
+                    # with the case): this claim's error verdict, and the run goes on
+                    rec = _error_record(spec, claim, opts, e)
+                verdicts = finish_claim(rec)
+            decided.append((rec, verdicts))
+    except RunStopped as stop:
+        done = list(decided)
+        stop.verdicts = [v for _, vs in done for v in vs]
+        for claim in claims[len(done):]:
+            stop.verdicts.extend(unfinished_verdicts(spec, claim, opts, stop.reason))
+        stop.records = {rec["claim"]: rec for rec, _ in done}
+        raise
+    return [v for _, vs in decided for v in vs], {rec["claim"]: rec for rec, _ in decided}
+
+
+def unfinished_verdicts(spec: Spec, claim: Claim, opts: RunOptions, reason: str) -> list[Verdict]:
+    """The entries of a claim a stop left undecided: the same entries as a finished claim
+    (its own, then its parts), each inconclusive, cut by ``interrupted``."""
+    b = claim_bounds(spec, claim, opts)
+    p = plan(spec, claim)
+    own = ([p.head] if p.head else []) + list(p.parts)
+    out = [Verdict(ob.name, claim.file, ob.text, INCONCLUSIVE, b, reason=reason,
+                   cut_by=INTERRUPTED) for ob in own]
+    if p.head is None:
+        out.insert(0, Verdict(claim.name, claim.file, claim.text, INCONCLUSIVE, b, reason=reason,
+                              cut_by=INTERRUPTED))
+    for v in out[1:]:
+        v.part_of = claim.name
+    return out
 
 
 def claim_records(spec: Spec, claim: Claim, opts: RunOptions) -> dict[str, Any]:
@@ -183,6 +214,22 @@ def _empty_sorts(spec: Spec, ob: Obligation, b: Bounds) -> list[str]:
             if count_terms(spec.calculi[m.calculus], m.sort, b.size, b.names) == 0]
 
 
+def _error_record(spec: Spec, claim: Claim, opts: RunOptions, e: CalcError) -> dict[str, Any]:
+    """The record of a claim that a run-time failure stopped before any case could be named."""
+    problem = e.problems[0]
+    pos = problem.pos or claim.pos
+    b = claim_bounds(spec, claim, opts)
+    v = Verdict(claim.name, claim.file, claim.text, ERROR, b, reason=problem.message)
+    v.error = {"message": problem.message,
+               "at": str(pos) if pos is not None and pos.line > 0 else None,
+               "hint": problem.hint, "case": None}
+    ob = {"name": claim.name, "file": claim.file, "formula": claim.text, "head": True,
+          "kind": "fixed", "verdict": v.to_json()}
+    return {"claim": claim.name, "file": claim.file, "formula": claim.text,
+            "bounds": b.as_dict(), "shorthand": False, "obligations": [ob],
+            "shard": list(opts.shard) if opts.shard else None}
+
+
 def _engine(spec: Spec, ob: Obligation, opts: RunOptions) -> str:
     """The engine for one relational obligation: enumeration unless smt or auto says otherwise
     (the rule of auto is in obligations/engines/smt.py)."""
@@ -234,6 +281,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         else:
             v.part_of = rec["claim"]
             parts_v.append(v)
+    if head_v is not None:
+        _refuted_by_part(head_v, parts_v, relational)
     if head_v is None:
         head_v = Verdict(rec["claim"], rec["file"], rec["formula"],
                          worst([v.verdict for v in parts_v]), b,
@@ -242,7 +291,8 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
         head_v.undecided = sum(v.undecided for v in parts_v)
         bad = [v for v in parts_v if v.verdict == head_v.verdict and v.verdict != HOLDS]
         if bad:
-            head_v.reason = f"part {bad[0].name} is {bad[0].verdict}"
+            head_v.reason = (f"part {bad[0].name} is {bad[0].verdict}" if bad[0].verdict != ERROR
+                             else f"part {bad[0].name} ended in an error")
             head_v.cut_by = bad[0].cut_by
         engines = {v.engine for v in parts_v}
         if len(engines) == 1:
@@ -253,53 +303,45 @@ def finish_claim(rec: dict[str, Any], extra_parts: dict[str, list] | None = None
     return [head_v, *parts_v]
 
 
+def _refuted_by_part(head: Verdict, parts: list[Verdict],
+                     relational: list[enumeration.Partial]) -> None:
+    """A claim whose own cases hold or are undecided is refuted by a refuted part (its
+    ``normalize(T)`` part), as a shorthand is by its parts; ``tried`` is then the position of
+    the part's counterexample, and only the undecided cases before it count."""
+    if head.verdict not in (HOLDS, INCONCLUSIVE):
+        return
+    bad = next((v for v in parts if v.verdict == REFUTED), None)
+    if bad is None:
+        return
+    head.verdict = REFUTED
+    head.reason = f"part {bad.name} is refuted"
+    head.tried = bad.tried
+    mine = [u for p in relational if p.name == head.name for u in p.undecided]
+    head.undecided, head.cut_by = enumeration.undecided_tally(mine, bad.tried - 1)
+    head.undecided_example = None
+
+
 def _run_relational(spec: Spec, ob: Obligation, b: Bounds, opts: RunOptions
                     ) -> list[enumeration.Partial]:
     progress = None
-    if opts.progress is not None:
+    if opts.progress is not None or opts.cases is not None:
         slots = [(spec.calculi[m.calculus], m.sort) for m in ob.quantified]
         assert b.size is not None and b.names is not None
-        total = count_tuples(slots, b.size, b.names)
-        if opts.shard is not None:
-            total = -(-total // opts.shard[1])
-
-        def progress(done: int, _name=ob.name, _total=total) -> None:
-            opts.progress(_name, done, _total)  # type: ignore[misc]
+        cases = count_cases(slots, b.size, b.names, opts.shard[1] if opts.shard else 1)
+        if opts.cases is not None:
+            opts.cases(ob.name, cases)
+        if opts.progress is not None:
+            def progress(done: int, _name=ob.name, _total=cases.total) -> None:
+                opts.progress(_name, done, _total)  # type: ignore[misc]
 
     if opts.jobs <= 1:
         return [enumeration.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
-    shards = _subshards(opts.shard, opts.jobs)
-    ctx = multiprocessing.get_context("fork")
-    global _WORK
-    done = ctx.Value("q", 0)  # values decided, summed over the workers, for the progress line
-    _WORK = (spec, ob, b, opts.collect_all, done)
-    try:
-        with ctx.Pool(opts.jobs) as pool:
-            result = pool.map_async(_work, shards)
-            while not result.ready():
-                result.wait(0.2)
-                if progress is not None:
-                    progress(done.value)
-            return result.get()
-    finally:
-        _WORK = None
+    from calcscout.obligations.workers import run_shards, usable_cpus
 
-
-_WORK: tuple | None = None  # what the forked workers inherit: spec, obligation, bounds, ...
-
-
-def _work(shard: tuple[int, int]) -> enumeration.Partial:
-    assert _WORK is not None
-    spec, ob, b, collect_all, done = _WORK
-    seen = 0
-
-    def count(tried: int) -> None:
-        nonlocal seen
-        with done.get_lock():
-            done.value += tried - seen
-        seen = tried
-
-    return enumeration.run_shard(spec, ob, b, shard, collect_all, count)
+    jobs = min(opts.jobs, usable_cpus())  # more processes than CPUs only cost forks and memory
+    if jobs <= 1:
+        return [enumeration.run_shard(spec, ob, b, opts.shard, opts.collect_all, progress)]
+    return run_shards(spec, ob, b, _subshards(opts.shard, jobs), opts.collect_all, progress)
 
 
 def _subshards(shard: tuple[int, int] | None, jobs: int) -> list[tuple[int, int]]:

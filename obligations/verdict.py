@@ -70,6 +70,10 @@ class Verdict:
     assumes: list[str] = field(default_factory=list)  # lemmas used that are only bounded
     warning: str | None = None  # e.g. "holds" with no case at all: an empty sort
     witness: dict[str, Any] | None = None  # a proof's certificate (a termination order)
+    # holds because a premise generated no case at all (no term within the bounds has a step)
+    vacuous: bool = False
+    # the error verdict's run-time failure: {"message", "at", "hint", "case": {"size", "terms"}}
+    error: dict[str, Any] | None = None
 
     def to_json(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -86,6 +90,10 @@ class Verdict:
             "engine": self.engine,
             "counterexample": self.counterexample.to_json() if self.counterexample else None,
         }
+        if self.error is not None:
+            out["error"] = dict(self.error)
+        if self.vacuous:
+            out["vacuous"] = True
         if self.reason is not None:
             out["reason"] = self.reason
         if self.warning is not None:
@@ -131,6 +139,8 @@ class Verdict:
             lemmas=list(data.get("lemmas", [])), assumes=list(data.get("assumes", [])),
             warning=data.get("warning"),
             witness=data.get("witness"),
+            vacuous=bool(data.get("vacuous", False)),
+            error=dict(data["error"]) if data.get("error") else None,
         )
 
 

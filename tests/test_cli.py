@@ -107,10 +107,17 @@ def test_check_json_report_fields_in_order(capsys) -> None:
 
 
 def test_reports_are_written_whole_or_not_at_all(capsys, tmp_path) -> None:
+    # a run-time failure in a claim is that claim's error verdict: the report is written
+    # (it used to stop the run with no report; tests/test_claim_errors.py has the rest)
     target = tmp_path / "r.json"
     code, _, err = run(capsys, "check", str(DATA / "engine" / "runtime-failure.calc"), "--json",
                        str(target))
-    assert code == 2 and "no equation of only_val matches" in err
+    assert code == 2 and err == ""
+    assert json.loads(target.read_text())["claims"][0]["verdict"] == "error"
+    # a command line that asks for what cannot be done stops the run: no report at all
+    target.unlink()
+    code, _, err = run(capsys, "check", EVERY, "--engine", "smt", "--json", str(target))
+    assert code == 2 and "use --engine enum or auto" in err
     assert not target.exists() and list(tmp_path.iterdir()) == []
 
 
@@ -121,7 +128,8 @@ def test_junit_has_one_case_per_claim_and_part(capsys, tmp_path) -> None:
     cases = {c.get("name"): c for c in root.iter("testcase")}
     assert set(cases) == {"identity", "flip_same", "forked", "forked.normalize(into_fork)"}
     assert cases["flip_same"].find("failure") is not None
-    assert cases["forked"].find("skipped") is not None
+    # refuted by its normalize part (it used to be skipped while the part failed)
+    assert cases["forked"].find("failure") is not None
     assert cases["identity"].find("failure") is None
 
 

@@ -203,6 +203,9 @@ def test_proof_option_needs_a_known_ending_and_engine(capsys, tmp_path) -> None:
     code, _, err = run(capsys, "check", str(DATA / "proof" / "values.calc"), "--proof",
                        str(tmp_path / "p.md"))
     assert code == 2 and "--engine proof" in err
+    code, _, err = run(capsys, "check", str(DATA / "proof" / "values.calc"), "--engine", "proof",
+                       "--proof", str(tmp_path / "missing" / "p.md"))
+    assert code == 2 and not (tmp_path / "missing").exists()  # an unwritable path
 
 
 def test_bounded_engines_check_lemmas_and_substitutions(capsys) -> None:

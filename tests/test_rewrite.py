@@ -19,6 +19,7 @@ from calcscout.rules.core.enumerate import enumerate_terms
 from calcscout.rules.core.errors import FileError
 from calcscout.rules.core.spec import Calculus, Rule
 from calcscout.rules.core.terms import Term, is_internal, name, node
+from calcscout.rules.loading.load import load_file
 from calcscout.rules.rewriting.rewrite import (
     find_cycle,
     join,
@@ -343,3 +344,68 @@ def test_join_agrees_with_networkx(a, b):
         assert not common and ga.graph["complete"] and gb.graph["complete"]
     else:
         assert not common and not (ga.graph["complete"] and gb.graph["complete"])
+
+
+def _blow(n: int) -> tuple[Calculus, Term]:
+    from calcscout.rules.rewriting.translate import Translator
+
+    spec = load_file(DATA / "doubling.calc")
+    k = node("z")
+    for _ in range(n):
+        k = node("s", (k,))
+    return spec.calculi["c"], Translator(spec, spec.translations["blow"]).apply("blow", k)
+
+
+def test_many_reducts_come_in_the_same_order_one_at_a_time() -> None:
+    """Past LAZY_ABOVE steps a term's reducts are built lazily: the same steps, in the same
+    order, as the eager construction (asked here with no limit)."""
+    from calcscout.rules.rewriting.rewrite import LAZY_ABOVE, _reducer, iter_reducts
+
+    c, t = _blow(11)  # 2048 leaves, each a redex
+    assert 2**11 > LAZY_ABOVE
+    eager = _reducer(c, None)._raw(t, (), 10**9)
+    assert len(eager) == 2**11
+    assert reducts(c, t) == eager
+    assert tuple(iter_reducts(c, t)) == eager
+    assert len({s.result for s in eager}) == 2**11
+
+
+def test_the_bound_on_nodes_bounds_the_reducts_built() -> None:
+    """A term with 2^16 reducts and a graph of 200 nodes: the graph (and the early-exit
+    search, and join) stop once full, and are cut by nodes; they used to build every reduct
+    of every node first (2 GB and minutes for the claims of doubling.calc).
+
+    Family: every caller that took all of a term's reducts.  Checked: the graph builder
+    (reduction_graph, join, premises, normalisation and confluence use it), the early-exit
+    search of ->* and ->+ (it stops at the bound too, as the graph builder does), and the
+    one-step atoms -> and ->= and `->` premises (now taken one at a time)."""
+    import tracemalloc
+
+    from calcscout.obligations.engines.evaluate import search
+
+    c, t = _blow(16)
+    target = node("b")
+    tracemalloc.start()
+    try:
+        g = reduction_graph(c, t, 20, 200)
+        r = search(c, t, target, 20, 200)
+        j = join(c, t, target, 20, 200)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    assert g.number_of_nodes() == 200 and g.graph["cut_by"] == "nodes"
+    assert not g.graph["complete"]
+    assert not r.found and not r.complete and r.cut_by == "nodes" and r.explored == 200
+    assert j.status == "unknown" and j.cut_by == "nodes"
+    # 2^16 reducts of a 17-deep spine each would take well over 100 MB
+    assert peak < 30 * 2**20, peak
+
+
+def test_claims_on_a_doubling_term_are_cut_by_nodes() -> None:
+    from calcscout.obligations.runner import RunOptions, run_claims
+
+    spec = load_file(DATA / "doubling.calc")
+    out, _ = run_claims(spec, list(spec.claims), RunOptions())
+    for v in out:
+        assert v.verdict == "inconclusive" and v.cut_by == "nodes", v.name
+        assert v.tried == 15 and v.undecided == 12

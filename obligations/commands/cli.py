@@ -178,32 +178,10 @@ def translate(file: str, function: str, term: str, args: tuple[str, ...], steps:
 # ---------------------------------------------------------------- check
 
 
-class _ProgressLine:
-    """A one-line progress display on standard error, only on a terminal, only after 1 s."""
-
-    def __init__(self) -> None:
-        import time
-
-        self.clock = time.monotonic
-        self.start = self.clock()
-        self.last = 0.0
-        self.enabled = sys.stderr.isatty()
-        self.shown = False
-
-    def __call__(self, name: str, done: int, total: int) -> None:
-        now = self.clock()
-        if not self.enabled or now - self.start < 1.0 or now - self.last < 0.1:
-            return
-        self.last = now
-        pct = f"{100 * done // total:3d}%" if total else "    "
-        sys.stderr.write(f"\r  checking {name}: {done}/{total} values {pct}\x1b[K")
-        sys.stderr.flush()
-        self.shown = True
-
-    def clear(self) -> None:
-        if self.shown:
-            sys.stderr.write("\r\x1b[K")
-            sys.stderr.flush()
+def _positive_seconds(ctx, param, value):
+    if value is not None and not value > 0:
+        raise click.BadParameter(f"must be more than 0 seconds, not {value}")
+    return value
 
 
 def _shard_option(ctx, param, value):
@@ -245,10 +223,26 @@ def _shard_option(ctx, param, value):
 @click.option("--proof", "proof_path", metavar="PATH.md|PATH.tex", default=None,
               help="Write the proofs the engine attempted (engines proof and auto), as "
                    "Markdown or LaTeX.")
+@click.option("--culprits", is_flag=True,
+              help="Name the rules and equations each counterexample needs (several checks more).")
+@click.option("--by-rule", "by_rule", is_flag=True,
+              help="Split each `M -> N implies ...` into one part per rule of the premise's step.")
+@click.option("--time-limit", type=float, default=None, metavar="SECONDS",
+              callback=_positive_seconds,
+              help="Stop after this many seconds, as an interrupted run does: claims not "
+                   "decided by then are inconclusive.")
 def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine: str,
           timeout: float | None, json_path: str | None, junit_path: str | None, jobs: int,
-          shard, collect_all: bool, quiet: bool, proof_path: str | None) -> None:
-    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first."""
+          shard, collect_all: bool, quiet: bool, culprits: bool = False,
+          by_rule: bool = False, time_limit: float | None = None,
+          proof_path: str | None = None) -> None:
+    """Check the claims of FILE (all of them, or the CLAIMs named), smallest cases first.
+
+    SIGINT (Ctrl-C) or SIGTERM, or the time limit, stops the run: the report
+    keeps the claims decided so far, the others are inconclusive (cut by
+    "interrupted"); the exit status is then 130, 143, or as the verdicts say.
+    """
+    from calcscout.obligations.progress import ProgressLine
     from calcscout.obligations.reporting.report import (
         dumps,
         json_report,
@@ -258,15 +252,19 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         write_atomically,
     )
     from calcscout.obligations.runner import RunOptions, run_claims
+    from calcscout.obligations.stopping import RunStopped, StopSignals
     from calcscout.obligations.verdict import exit_code
+    from calcscout.obligations.workers import usable_cpus
 
     if proof_path is not None:
         if not proof_path.endswith((".md", ".tex")):
             raise UsageError(f"--proof {proof_path}: the file name must end in .md or .tex")
         if engine not in ("proof", "auto"):
             raise UsageError("--proof needs --engine proof or --engine auto")
+    if (culprits or by_rule) and shard:
+        raise UsageError("--culprits and --by-rule take the whole run, not a --shard")
     spec = load(file)
-    _check_outputs(spec.files, json_path, junit_path)
+    _check_outputs(spec.files, json_path, junit_path, proof_path)
     sources = _sources(spec) if shard else None  # the contents this run reads, for merge
     chosen = list(spec.claims)
     if claims:
@@ -276,15 +274,31 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
             raise UsageError(f"no claim {missing[0]} in {spec.file}",
                              hint="claims: " + (", ".join(by_name) or "none"))
         chosen = [by_name[c] for c in dict.fromkeys(claims)]  # a claim named twice runs once
-    progress = _ProgressLine()
+    cpus = usable_cpus()
+    if jobs > cpus:
+        click.echo(f"calcscout: --jobs {jobs} is more than the {cpus} CPU(s) this process may "
+                   f"use; using {cpus}", err=True)
+        jobs = cpus
+    progress = ProgressLine()
+    stop = StopSignals(time_limit)
     opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes), jobs, shard,
-                      collect_all, engine, timeout, progress)
-    try:
-        verdicts, partials = run_claims(spec, chosen, opts)
-    finally:
-        progress.clear()
+                      collect_all, engine, timeout, progress, progress.begin, stop)
+    with stop:
+        try:
+            verdicts, partials = run_claims(spec, chosen, opts)
+        except RunStopped as stopped:  # its report: the claims decided, the others inconclusive
+            assert stopped.verdicts is not None and stopped.records is not None
+            verdicts, partials = stopped.verdicts, stopped.records
+        finally:
+            progress.clear()
+    if (culprits or by_rule) and stop.request is None:
+        from calcscout.obligations.analysis.explain_failure import analyse
+
+        verdicts = analyse(spec, verdicts, opts.bounds, culprits, by_rule)
     extra = (_shard_fields(sources, shard, engine, timeout, collect_all, partials) if shard
              else None)
+    if stop.request is not None:
+        extra = _say_stopped(stop.request, verdicts, extra)
     report = json_report(spec.file, verdicts, extra)
     if json_path is not None:
         write_atomically(json_path, dumps(report), spec.files)
@@ -296,8 +310,24 @@ def check(file: str, claims: tuple[str, ...], size, steps, names, nodes, engine:
         write_atomically(proof_path, written_proofs(spec.file, verdicts, proof_path), spec.files)
     if json_path != "-":
         out = sys.stdout
-        out.write(text_report(spec.file, verdicts, use_colour(out), quiet))
+        from calcscout.obligations.analysis.keys import notation_printer
+
+        out.write(text_report(spec.file, verdicts, use_colour(out), quiet, notation_printer(spec)))
+    if stop.request is not None and stop.request.status is not None:
+        sys.exit(stop.request.status)
     sys.exit(exit_code([v.verdict for v in verdicts if not v.part_of]))
+
+
+def _say_stopped(request, verdicts, extra: dict | None) -> dict | None:
+    """Say on standard error that the run was stopped; mark a report it left incomplete
+    (``"stopped"``: ``merge`` refuses a shard that did not do all its work)."""
+    from calcscout.obligations.stopping import INTERRUPTED
+
+    left = sum(1 for v in verdicts if v.cut_by == INTERRUPTED and not v.part_of)
+    click.echo(f"calcscout: stopped by {request.cause}; "
+               + (f"{left} claim(s) not decided are reported inconclusive" if left
+                  else "every claim was decided"), err=True)
+    return {**(extra or {}), "stopped": request.cause} if left else extra
 
 
 def _check_outputs(inputs, *paths: str | None) -> None:
@@ -327,6 +357,54 @@ def _shard_fields(sources, shard, engine: str, timeout, collect_all: bool, parti
     (the same rule file contents, claims, bounds, engine, shard count) from others."""
     return {"shard": list(shard), "sources": sources, "engine": engine, "timeout": timeout,
             "all": collect_all, "records": partials}
+
+
+# ---------------------------------------------------------------- latex
+
+
+@cli.command()
+@click.argument("file", type=click.Path(dir_okay=False))
+@click.argument("items", nargs=-1)
+@click.option("-o", "output", required=True, metavar="PATH.tex", help="Where to write the document.")
+@size_option
+@steps_option
+@names_option
+@nodes_option
+@click.option("--culprits", is_flag=True,
+              help="Add under each counterexample the rules and equations it needs (as check).")
+def latex(file: str, items: tuple[str, ...], output: str, size, steps, names, nodes,
+          culprits: bool) -> None:
+    """Write a LaTeX document: grammars, rules, equations, and the claims' counterexamples.
+
+    An ITEM names a calculus, translation or claim to include (none: everything);
+    the claims included are checked as `check` would.
+    """
+    from calcscout.obligations.reporting.latex import latex_document
+    from calcscout.obligations.reporting.report import write_atomically
+    from calcscout.obligations.runner import RunOptions, run_claims
+
+    spec = load(file)
+    _check_outputs(spec.files, output)
+    calculi, translations, claims = list(spec.calculi), list(spec.translations), list(spec.claims)
+    if items:
+        by_claim = {c.name: c for c in spec.claims}
+        for it in items:
+            if it not in spec.calculi and it not in spec.translations and it not in by_claim:
+                known = ", ".join([*spec.calculi, *spec.translations, *by_claim]) or "none"
+                raise UsageError(f"no calculus, translation or claim {it} in {spec.file}",
+                                 hint=f"items: {known}")
+        calculi = [c for c in calculi if c in items]
+        translations = [t for t in translations if t in items]
+        claims = [c for c in claims if c.name in items]
+    opts = RunOptions(Bounds(size=size, steps=steps, names=names, nodes=nodes))
+    verdicts, _ = run_claims(spec, claims, opts) if claims else ([], {})
+    if culprits:
+        from calcscout.obligations.analysis.explain_failure import analyse
+
+        verdicts = analyse(spec, verdicts, opts.bounds, True, False)
+    write_atomically(output, latex_document(spec, calculi, translations, verdicts), spec.files)
+    click.echo(f"wrote {output}: {len(calculi)} calculi, {len(translations)} translation(s), "
+               f"{len(claims)} claim(s)")
 
 
 # ---------------------------------------------------------------- reduce
@@ -398,6 +476,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
     A pair is settled symbolically (for all instances) or by instances of its
     metavariables up to --size; the output says which.
     """
+    from calcscout.obligations.progress import ProgressLine
     from calcscout.obligations.reporting.report import dumps, write_atomically
     from calcscout.rules.critical_pairs.critical import pairs_report
 
@@ -409,7 +488,7 @@ def pairs(file: str, calc_name: str, size, steps, nodes, json_out) -> None:
         raise UsageError(f"calculus {cname} has no rule group {group}",
                          hint="groups: " + (", ".join(calc.groups) or "none"))
     b = spec.effective_bounds(Bounds(size=size, steps=steps, nodes=nodes))
-    progress = _ProgressLine()
+    progress = ProgressLine()
     try:
         report = pairs_report(calc, b, group or None, progress)
     finally:

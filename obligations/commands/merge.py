@@ -38,6 +38,11 @@ def merge_reports(paths: list[str], output: str | None = None
     the output, with the reports themselves).  ``output`` is checked as soon as those
     files are known, before any counterexample is judged again."""
     reports = [(p, load_report(p)) for p in paths]
+    stopped = next(((p, r["stopped"]) for p, r in reports
+                    if isinstance(r, dict) and r.get("stopped")), None)
+    if stopped is not None:
+        raise UsageError(f"{stopped[0]} is the report of a shard stopped by {stopped[1]} before it "
+                         "finished; run that shard again")
     for p, r in reports:
         _check_shape(p, r)
     first_path, first = reports[0]

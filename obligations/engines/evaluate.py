@@ -19,7 +19,7 @@ from calcscout.rules.core.sorts import grammar
 from calcscout.rules.core.spec import Atom, Bounds, Calculus, EMeta, ESubst, Expr, Relation, Spec
 from calcscout.rules.core.terms import Name, Node, Term, name, open_body, substitute
 from calcscout.rules.notation.notation import print_abstract, print_abstract_at
-from calcscout.rules.rewriting.rewrite import join, position_text, reduction_graph, reducts
+from calcscout.rules.rewriting.rewrite import iter_reducts, join, position_text, reduction_graph
 from calcscout.rules.rewriting.translate import Translator, Undefined
 
 OK = "ok"
@@ -52,7 +52,8 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
     """Is ``target`` reachable from ``source`` (by at least one step when ``plus``)?
 
     Stops at the first sight of the target; otherwise explores everything
-    within ``steps`` and ``nodes`` and says whether that was all.
+    within ``steps`` and ``nodes`` and says whether that was all.  A term that
+    would go beyond ``nodes`` stops the search at once, cut by "nodes".
     """
     parent: dict[Term, tuple[Term | None, str, tuple[int, ...]]] = {source: (None, "", ())}
     depth = {source: 0}
@@ -65,35 +66,52 @@ def search(calc: Calculus, source: Term, target: Term, steps: int, nodes: int,
     while todo:
         t = todo.popleft()
         if depth[t] >= steps:
-            if reducts(calc, t, group):
+            # As the graph builder does (rules/rewriting/rewrite.py): a reduct already in the graph is
+            # an edge, not a cut; only a term beyond the bound cuts.  Breadth first, every term
+            # within ``steps`` is already in ``parent`` here.
+            has_step = False
+            for s in iter_reducts(calc, t, group):
+                has_step = True
+                if s.result in parent:
+                    if s.result is target:  # a cycle back to the source, for ->+
+                        return _found(parent, t, s, len(parent), complete, cut_by, normal)
+                    continue
                 complete = False
                 cut_by = cut_by or "steps"
-            else:
+                break
+            if not has_step:
                 normal.append(t)
             continue
-        rs = reducts(calc, t, group)
-        if not rs:
-            normal.append(t)
-        for s in rs:
+        has_step = False
+        for s in iter_reducts(calc, t, group):
+            has_step = True
             r = s.result
             if r is target:
-                path = [(r, s.rule, s.position)]
-                cur: Term | None = t
-                while cur is not None:
-                    up, rule, pos = parent[cur]
-                    path.append((cur, rule, pos))
-                    cur = up
-                return Reach(True, path[::-1], len(parent), complete, cut_by, normal)
+                return _found(parent, t, s, len(parent), complete, cut_by, normal)
             if r in parent:
                 continue
             if len(parent) >= nodes:
-                complete = False
-                cut_by = "nodes"
-                continue
+                # the graph is full: stop at once, as the graph builder does, building no
+                # further reduct (a term's reducts can be far more than the bound on nodes)
+                return Reach(False, [], len(parent), False, "nodes", normal)
             parent[r] = (t, s.rule, s.position)
             depth[r] = depth[t] + 1
             todo.append(r)
+        if not has_step:
+            normal.append(t)
     return Reach(False, [], len(parent), complete, cut_by, normal)
+
+
+def _found(parent: dict, t: Term, s, explored: int, complete: bool, cut_by: str | None,
+           normal: list[Term]) -> Reach:
+    """The path to ``s.result`` through ``t``, read back along ``parent``."""
+    path = [(s.result, s.rule, s.position)]
+    cur: Term | None = t
+    while cur is not None:
+        up, rule, pos = parent[cur]
+        path.append((cur, rule, pos))
+        cur = up
+    return Reach(True, path[::-1], explored, complete, cut_by, normal)
 
 
 def first_difference(calc: Calculus, a: Term, b: Term) -> tuple[tuple[int, ...], Term, Term]:
@@ -265,13 +283,18 @@ class Evaluator:
         if rel.kind in ("->", "->="):
             if rel.kind == "->=" and left is right:
                 return Outcome(OK)
-            steps = reducts(calc, left, rel.group)
-            if any(s.result is right for s in steps):
-                return Outcome(OK)
-            shown = [print_abstract(calc, s.result) for s in steps[:5]]
+            count = 0
+            first: list[Term] = []
+            for s in iter_reducts(calc, left, rel.group):  # one at a time: there may be many
+                if s.result is right:
+                    return Outcome(OK)
+                count += 1
+                if count <= 5:
+                    first.append(s.result)
+            shown = [print_abstract(calc, t) for t in first]
             return Outcome(FAIL, evidence=(
-                f"{rt} is not a one-step reduct of {lt}" + (f" (it has {len(steps)}: "
-                + ", ".join(shown) + (", ..." if len(steps) > 5 else "") + ")" if steps
+                f"{rt} is not a one-step reduct of {lt}" + (f" (it has {count}: "
+                + ", ".join(shown) + (", ..." if count > 5 else "") + ")" if count
                 else " (it has none: a normal form)")),
                 details={"reducts": shown, **self._join_details(calc, left, right, rel)})
         if rel.kind in ("->*", "->+"):
@@ -348,7 +371,7 @@ class Evaluator:
         if rel.kind in ("->", "->="):
             if rel.kind == "->=":
                 yield m, "", ()
-            for s in reducts(calc, m, rel.group):
+            for s in iter_reducts(calc, m, rel.group):
                 yield s.result, s.rule, s.position
             return
         b = self.bounds

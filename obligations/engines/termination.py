@@ -744,7 +744,7 @@ def export_claim(spec, claim, out_dir) -> Path:
     """``calcscout export`` of a ``terminating C`` claim: ``DIR/NAME.smt2``, the
     order-finding query of :func:`export_terminating` with a header saying what the
     answers mean.  A rule set outside the first-order view is an
-    :class:`~rules.errors.EncodingError`."""
+    :class:`~calcscout.rules.core.errors.EncodingError`."""
     f = claim.formula
     calc = spec.calculi[f.calculus]
     system, why = view(calc, f.group)

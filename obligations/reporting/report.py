@@ -13,7 +13,7 @@ import os
 import stat
 import sys
 import tempfile
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any
 from xml.sax.saxutils import escape, quoteattr
@@ -39,7 +39,7 @@ def _paint(text: str, code: str, colour: bool) -> str:
 
 
 def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = False,
-                quiet: bool = False) -> str:
+                quiet: bool = False, show: ShowTerm | None = None) -> str:
     lines: list[str] = []
     width = max((len(v.name) for v in verdicts), default=4)
     width = min(max(width, 4), 40)
@@ -54,12 +54,13 @@ def text_report(spec_file: str, verdicts: Sequence[Verdict], colour: bool = Fals
     # a shorthand's own entry has no evidence of its own: its parts carry it
     details = [v for v in verdicts if v.verdict in (REFUTED, INCONCLUSIVE, "error")
                and (v.counterexample is not None or v.undecided_example is not None
+                    or v.error is not None
                     or v.part_of is not None or not _has_parts(v, verdicts))]
     details += [v for v in verdicts if v not in details and v.proof
                 and not v.proof.get("proved")]
     for v in details:
         lines.append("")
-        lines.extend(evidence_lines(v, colour))
+        lines.extend(evidence_lines(v, colour, show))
     counts = {k: sum(1 for v in verdicts if v.verdict == k and not v.part_of)
               for k in (HOLDS, REFUTED, INCONCLUSIVE, "error")}
     summary = ", ".join(f"{n} {word}" for word, n in
@@ -85,6 +86,9 @@ def _summary(v: Verdict) -> str:
         return f"proved for all terms ({v.reason})  [{v.engine}]  {secs}"
     if v.engine == "proof" and v.verdict == HOLDS:
         return f"{v.reason}  [proof]  {secs}"
+    if v.verdict == HOLDS and v.vacuous and not (v.warning and v.tried == 0):
+        return (f"vacuously: {v.reason or 'the premise generated no case'} ({v.tried} value(s) "
+                f"up to {_bounds_text(v)})  [{v.engine}]  {secs}")
     if v.verdict == HOLDS:
         warn = f"  warning: {v.warning}" if v.warning else ""
         return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}{warn}"
@@ -97,16 +101,27 @@ def _summary(v: Verdict) -> str:
     if v.verdict == INCONCLUSIVE:
         why = v.reason or f"{v.undecided} case(s) cut by {v.cut_by}"
         return f"{why}  [{v.engine}]  {secs}"
+    if v.error is not None:
+        case = v.error.get("case")
+        where = f" on a case of size {case['size']}" if case and case.get("size") else ""
+        return f"{v.error['message']}{where} after {v.tried} case(s)  [{v.engine}]  {secs}"
     return v.reason or ""
 
 
-def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
-    """A claim's evidence as the terminal shows it (also used by ``explain``)."""
+# (verdict, counterexample key, abstract form) -> the term with notations, or None
+ShowTerm = Callable[[Verdict, str, str], str | None]
+
+
+def evidence_lines(v: Verdict, colour: bool = False, show: ShowTerm | None = None) -> list[str]:
+    """A claim's evidence as the terminal shows it (also used by ``explain``); ``show``
+    adds under a term its form with notations, where that differs."""
     head = _paint(f"{v.verdict}: {v.name}", COLOURS.get(v.verdict, "0"), colour)
     out = [f"{head}  ({v.file})"]
     out.append(f"  formula:  {v.formula}")
     out.append(f"  bounds:   {_bounds_text(v)}")
-    if v.reason and v.verdict != REFUTED:
+    if v.error is not None:
+        out.extend(_error_lines(v.error))
+    elif v.reason and v.verdict != REFUTED:
         out.append(f"  why:      {v.reason}")
     if v.warning:
         out.append(f"  warning:  {v.warning}")
@@ -121,12 +136,23 @@ def evidence_lines(v: Verdict, colour: bool = False) -> list[str]:
                                                       else ", ".join(val)))
             else:
                 out.append(f"    {k:<{keyw}} = {val}")
+                pretty = show(v, k, val) if show is not None else None
+                if pretty is not None and pretty != val:
+                    out.append(f"    {'':<{keyw}}   {pretty}")
         if ce.evidence:
             out.append(f"  evidence: {ce.evidence}")
         graph = ce.details.get("graph") if ce.details else None
         if graph:
             state = "complete" if graph.get("complete") else f"cut by {graph.get('cut_by')}"
             out.append(f"  graph:    {graph.get('nodes')} term(s) from {graph.get('root')}, {state}")
+        culprits = ce.details.get("culprits") if ce.details else None
+        if culprits:  # check --culprits (obligations/analysis/culprits.py)
+            out.append(f"  used:     {', '.join(culprits['used']) or 'no rule, no equation'}")
+            if culprits.get("at_redex"):
+                out.append(f"  at redex: {', '.join(culprits['at_redex'])}")
+            if "minimal" in culprits:
+                out.append("  minimal:  " + (", ".join(culprits["minimal"]) or
+                                             "no rule (the failure lies in the translations)"))
     ex = v.undecided_example
     if ex is not None:
         out.append("  smallest undecided case" + (f" (size {ex.size}):" if ex.size else ":"))
@@ -157,6 +183,22 @@ def proof_lines(v: Verdict) -> list[str]:
         out.append(f"      why:   {why}")
         for lem in c.get("candidate_lemmas", []):
             out.append(f"      try:   lemma L: {lem}")
+    return out
+
+
+def _error_lines(error: dict[str, Any]) -> list[str]:
+    """A run-time failure: the message, where in the rule file, the case that met it."""
+    out = [f"  error:    {error['message']}"]
+    if error.get("at"):
+        out.append(f"  at:       {error['at']}")
+    case = error.get("case")
+    if case:
+        out.append("  case" + (f" (size {case['size']}):" if case.get("size") else ":"))
+        keyw = max((len(k) for k in case["terms"]), default=1)
+        for k, val in case["terms"].items():
+            out.append(f"    {k:<{keyw}} = {val}")
+    if error.get("hint"):
+        out.append(f"  hint:     {error['hint']}")
     return out
 
 

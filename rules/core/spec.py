@@ -73,6 +73,7 @@ class Notation:
     assoc: str | None = None  # 'left', 'right', 'nonassoc' or None (default rules)
     prec: int | None = None
     pos: Pos = _pos()
+    typeset: str | None = None  # the LaTeX form (math mode) given after `typeset`
 
 
 @dataclass(frozen=True)

@@ -453,7 +453,16 @@ class CalculusBuilder:
         if raw.prec is not None and not 0 <= raw.prec <= 100:
             self.error(f"precedence {raw.prec} is outside 0-100", raw.assoc_pos)
             return None
-        return Notation(raw.text, tokens, tuple(placeholders), assoc, raw.prec, raw.pos)
+        if raw.typeset is not None:
+            from calcscout.rules.notation.typeset import typeset_problems
+
+            for message, column in typeset_problems(raw.typeset, own):
+                at = raw.typeset_pos
+                assert at is not None
+                self.error(message, Pos(at.file, at.line, at.column + column))
+                return None
+        return Notation(raw.text, tokens, tuple(placeholders), assoc, raw.prec, raw.pos,
+                        raw.typeset)
 
     def check_context(self, decl) -> None:
         for alt in self.alts[decl.name]:

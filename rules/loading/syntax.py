@@ -68,6 +68,8 @@ class RawNotation:
     assoc: str | None = None
     assoc_pos: Pos | None = None
     prec: int | None = None
+    typeset: str | None = None  # the LaTeX form after `typeset`
+    typeset_pos: Pos | None = None
 
 
 @dataclass
@@ -444,11 +446,14 @@ class _Builder:
     def notation(self, t: Tree | None) -> RawNotation | None:
         if t is None:
             return None
-        s, assoc, prec = t.children
+        s, assoc, prec, *typeset = t.children
         where = assoc or prec
+        tex = typeset[-1] if typeset else None
         return RawNotation(_unquote(str(s)), self.pos(s), str(assoc) if assoc else None,
                            self.pos(where) if where else None,
-                           int(prec) if prec is not None else None)
+                           int(prec) if prec is not None else None,
+                           _unquote(str(tex)) if tex is not None else None,
+                           self.pos(tex) if tex is not None else None)
 
     def rule(self, t: Tree) -> RawRule:
         _, name, groups, lhs, rhs, *rest = t.children

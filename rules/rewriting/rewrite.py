@@ -163,14 +163,71 @@ class _Reducer:
         if term.loose:
             raise ValueError("reducts of a term with loose bound indices")
         if self.context is None:
-            return self._raw(term, ())
+            try:
+                return self._raw(term, (), LAZY_ABOVE)
+            except _TooMany:
+                return tuple(self._lazy(term, ()))
+        return tuple(self.iter_reducts(term))
+
+    def iter_reducts(self, term: Term) -> Iterator[Step]:
+        """The steps of :meth:`reducts`, in the same order, built one at a time when
+        there are more than :data:`LAZY_ABOVE` of them (so a caller that stops early
+        never builds the rest)."""
+        if term.loose:
+            raise ValueError("reducts of a term with loose bound indices")
+        if self.context is None:
+            try:
+                got = self._raw(term, (), LAZY_ABOVE)
+            except _TooMany:
+                return self._lazy(term, ())
+            return iter(got)
         if not self.may_reduce(term):
-            return ()
+            return iter(())
         got = self._get(term, ())
-        if got is None:
-            got = self._in_context(term)
-            self._put(term, (), got)
-        return got
+        if got is not None:
+            return iter(got)
+        return self._lazy_in_context(term)
+
+    def _lazy(self, term: Term, env: tuple[str, ...]) -> Iterator[Step]:
+        """The steps of :meth:`_raw` one at a time, for a subterm with too many to keep:
+        its arguments' steps come from the memo where they are few, lazily where not."""
+        env = env[: term.loose]
+        try:
+            got = self._raw(term, env, LAZY_ABOVE)
+        except _TooMany:
+            pass
+        else:
+            yield from got
+            return
+        rules = self.candidates(term)
+        if rules:
+            yield from self._root_steps(term, env, rules)
+        assert isinstance(term, Node)  # a name has no more steps than LAZY_ABOVE
+        for i, arg in enumerate(term.args):
+            if not self.may_reduce(arg):
+                continue
+            inner = env
+            if term.binders[i]:
+                bsorts = binder_sorts(self.calc, term.con, i, term.binders[i])
+                inner = tuple(reversed(bsorts)) + env
+            for s in self._lazy(arg, inner):
+                args = term.args[:i] + (s.result,) + term.args[i + 1 :]
+                yield Step(s.rule, (i, *s.position), node(term.con, args, term.binders))
+
+    def _lazy_in_context(self, term: Term) -> Iterator[Step]:
+        """The steps of :meth:`_in_context` one at a time; kept in the memo when few."""
+        out: list[Step] = []
+        seen: set[Step] = set()
+        for ctx, hole in decompositions(self.calc, self.context, term):
+            for r, t in self.at_root(hole):
+                step = Step(r, ctx.position, ctx.plug(t))
+                if step not in seen:
+                    seen.add(step)
+                    if len(out) <= LAZY_ABOVE:
+                        out.append(step)
+                    yield step
+        if len(out) <= LAZY_ABOVE:
+            self._put(term, (), tuple(out))
 
     def candidates(self, term: Term) -> list[Rule]:
         """The rules whose left-hand side could match at the root of ``term``."""
@@ -204,9 +261,12 @@ class _Reducer:
                 "substitution for it, or add a condition `x fresh in ...`",
             )
 
-    def _raw(self, term: Term, env: tuple[str, ...]) -> tuple[Step, ...]:
+    def _raw(self, term: Term, env: tuple[str, ...], limit: int) -> tuple[Step, ...]:
         """The steps of a subterm that may have loose indices (``env[i]``: the
-        names sort of index ``i``), with results in the same raw form.
+        names sort of index ``i``), with results in the same raw form; raises
+        :class:`_TooMany` when there are more than ``limit`` (then :meth:`_lazy`
+        gives them one at a time: a memo entry never holds more than
+        :data:`LAZY_ABOVE`).
 
         Descending does not open binders: only a subterm where a rule may
         apply is opened (its loose indices replaced by fresh names), rewritten
@@ -219,21 +279,15 @@ class _Reducer:
         env = env[: term.loose]
         got = self._get(term, env)
         if got is not None:
+            if len(got) > limit:
+                raise _TooMany
             return got
         out: list[Step] = []
         rules = self.candidates(term)
         if rules:
-            if term.loose:
-                taken = set(term.free)
-                names: list[str] = []
-                for j in range(term.loose - 1, -1, -1):  # outermost first
-                    n = fresh_name(taken, base=f"{env[j]}:")
-                    taken.add(n)
-                    names.append(n)
-                opened = open_body(term, [name(n) for n in names])
-                out.extend(Step(r, (), close(t, names)) for r, t in self.at_root(opened, rules))
-            else:
-                out.extend(Step(r, (), t) for r, t in self.at_root(term, rules))
+            out.extend(self._root_steps(term, env, rules))
+            if len(out) > limit:
+                raise _TooMany
         if isinstance(term, Node):
             for i, arg in enumerate(term.args):
                 if not self.may_reduce(arg):
@@ -242,21 +296,26 @@ class _Reducer:
                 if term.binders[i]:
                     bsorts = binder_sorts(self.calc, term.con, i, term.binders[i])
                     inner = tuple(reversed(bsorts)) + env
-                for s in self._raw(arg, inner):
+                for s in self._raw(arg, inner, limit - len(out)):
                     args = term.args[:i] + (s.result,) + term.args[i + 1 :]
                     out.append(Step(s.rule, (i, *s.position), node(term.con, args, term.binders)))
         steps = tuple(out)
         self._put(term, env, steps)
         return steps
 
-    def _in_context(self, term: Term) -> tuple[Step, ...]:
-        out: list[Step] = []
-        for ctx, hole in decompositions(self.calc, self.context, term):
-            for r, t in self.at_root(hole):
-                step = Step(r, ctx.position, ctx.plug(t))
-                if step not in out:
-                    out.append(step)
-        return tuple(out)
+    def _root_steps(self, term: Term, env: tuple[str, ...], rules: Sequence[Rule]) -> list[Step]:
+        """The steps at the root of a subterm in raw form (its loose indices opened with
+        fresh names of their sorts, the results closed again)."""
+        if not term.loose:
+            return [Step(r, (), t) for r, t in self.at_root(term, rules)]
+        taken = set(term.free)
+        names: list[str] = []
+        for j in range(term.loose - 1, -1, -1):  # outermost first
+            n = fresh_name(taken, base=f"{env[j]}:")
+            taken.add(n)
+            names.append(n)
+        opened = open_body(term, [name(n) for n in names])
+        return [Step(r, (), close(t, names)) for r, t in self.at_root(opened, rules)]
 
 
 def _skeleton(p: Pattern, t: Term) -> bool:
@@ -272,6 +331,16 @@ def _skeleton(p: Pattern, t: Term) -> bool:
     if isinstance(p, PName):
         return isinstance(t, Name | Bound)
     return True
+
+
+#: A term with more one-step reducts than this has them built one at a time, as a graph
+#: takes them, and no memo entry keeps more (a term whose reducts double with its depth
+#: would otherwise fill memory long before the bound on nodes stops its graph).
+LAZY_ABOVE = 1024
+
+
+class _TooMany(Exception):
+    """A subterm has more steps than the caller's limit."""
 
 
 _reducers: dict[tuple[int, str | None], _Reducer] = {}
@@ -291,6 +360,12 @@ def reducts(calc: Calculus, term: Term, group: str | None = None) -> tuple[Step,
     ``group`` (all rules when None), each ``(rule, position, result)`` once,
     outermost positions first, rules in declaration order."""
     return _reducer(calc, group).reducts(term)
+
+
+def iter_reducts(calc: Calculus, term: Term, group: str | None = None) -> Iterator[Step]:
+    """The steps of :func:`reducts`, in the same order; where there are many, each is built
+    only when the iteration reaches it (stop early to build fewer)."""
+    return _reducer(calc, group).iter_reducts(term)
 
 
 def root_reducts(calc: Calculus, term: Term, group: str | None = None) -> tuple[Step, ...]:
@@ -341,11 +416,12 @@ class _Ball:
         g = self.graph
         added: list[Term] = []
         for t in self.layer:
-            steps = self.reducer.reducts(t)
             data = g.nodes[t]
             data["expanded"] = True
-            data["normal"] = not steps
-            for s in steps:
+            normal = True
+            # one step at a time: once the graph is full no further reduct is built
+            for s in self.reducer.iter_reducts(t):
+                normal = False
                 r = s.result
                 if r not in g:
                     if self.depth >= self.steps:
@@ -366,6 +442,7 @@ class _Ball:
                     g.add_edge(t, r, rule=s.rule, position=s.position, steps=[(s.rule, s.position)])
                 else:
                     edge["steps"].append((s.rule, s.position))
+            data["normal"] = normal
         self.layer = added
         self.depth += 1
         if not added:

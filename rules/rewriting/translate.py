@@ -4,7 +4,7 @@ Equations are tried in order and the first whose pattern matches applies;
 the right-hand side is built in the target calculus with calls evaluated
 recursively.  Binders opened by matching and fresh binders of the right-hand
 side are internal names that are closed again, so nothing is captured.
-Results are memoised per (function, interned term, extra arguments).
+Results are memoised per (function, interned term, extra arguments), the recent ones.
 
 A translation with ``then normalize GROUP`` gives, for a call from outside
 (a claim, the command line), the unique normal form under the target's group
@@ -37,7 +37,45 @@ from calcscout.rules.rewriting.instantiate import build
 from calcscout.rules.rewriting.match import match
 from calcscout.rules.rewriting.rewrite import normal_forms, reduction_graph
 
-MEMO_LIMIT = 500_000
+#: Entries per generation of a translator's memo tables (see :class:`_Memo`).
+MEMO_LIMIT = 16_384
+
+
+class _Memo:
+    """A memo table that forgets what was not used lately: two generations of at most
+    ``limit`` entries each; a hit in the old one moves the entry to the young one, and a
+    full young generation becomes the old one (the older is dropped).
+
+    An entry keeps its term and result alive, and with them their intern-table and
+    sort-automaton entries: a table that only cleared itself at half a million entries
+    held some 1.4 GB on an enumeration at size 11 (tests/bench/bench_claims.py measures
+    it).  Enumeration meets the same small subterms over and over, so the recent ones
+    are the ones worth keeping.
+    """
+
+    __slots__ = ("young", "old", "limit")
+
+    def __init__(self, limit: int):
+        self.young: dict = {}
+        self.old: dict = {}
+        self.limit = limit
+
+    def get(self, key):
+        got = self.young.get(key)
+        if got is None:
+            got = self.old.get(key)
+            if got is not None:
+                self.put(key, got)
+        return got
+
+    def put(self, key, value) -> None:
+        if len(self.young) >= self.limit:
+            self.old = self.young
+            self.young = {}
+        self.young[key] = value
+
+    def __len__(self) -> int:
+        return len(self.young) + len(self.old)
 
 
 class TranslationFailure(CalcError):
@@ -76,8 +114,8 @@ class Translator:
         self.source: Calculus = spec.calculi[tr.source]
         self.target: Calculus = spec.calculi[tr.target]
         self.bounds = spec.effective_bounds(bounds or Bounds())
-        self._memo: dict[tuple, Term] = {}
-        self._norm: dict[Term, Term | Undefined] = {}
+        self._memo = _Memo(MEMO_LIMIT)  # (function, term, extra arguments) -> result
+        self._norm = _Memo(MEMO_LIMIT)  # built term -> its normal form, or Undefined
         self._by_fn = {fn: tr.equations_of(fn) for fn in tr.signatures}
 
     # ------------------------------------------------------------ equations
@@ -97,9 +135,7 @@ class Translator:
                 result = build(self.target, eq.rhs, binding, self._call)
                 if result.free and any(is_internal(n) for n in result.free):
                     self._check_escape(eq, term, result, avoid)
-                if len(self._memo) > MEMO_LIMIT:
-                    self._memo.clear()
-                self._memo[key] = result
+                self._memo.put(key, result)
                 return result
         from calcscout.rules.notation.notation import print_abstract
 
@@ -154,9 +190,7 @@ class Translator:
             result = Undefined("no-normal-form", built, (), "cycle")
         else:
             result = nfs[0]
-        if len(self._norm) > MEMO_LIMIT:
-            self._norm.clear()
-        self._norm[built] = result
+        self._norm.put(built, result)
         return result
 
 

@@ -3,12 +3,21 @@
 Prints, for sizes 5 to 8: claims and cases per second, the share of time spent
 enumerating, translating and searching reduction graphs, the cost per case,
 the process's peak resident memory (tracemalloc would slow the run several
-times over), and the speed-up of --jobs 2 over --jobs 1.  Run: .venv/bin/python tests/bench/bench_claims.py
+times over), and the speed-up of --jobs 2 over --jobs 1.
+
+Then the peak memory of a refuted ``==`` claim whose planted bug shows only at size 11
+(tests/data/translate/pad.calc, 162,550 cases), each size in a process of its own so that
+the peak is that run's: memory must not grow with the number of cases (it was 725 MiB
+at size 11 while translation memo tables cleared themselves only at half a million
+entries).  ``--pad-only`` runs just that part.
+Run: .venv/bin/python tests/bench/bench_claims.py
 """
 
 from __future__ import annotations
 
 import resource
+import subprocess
+import sys
 import tempfile
 import time
 from pathlib import Path
@@ -26,6 +35,28 @@ CLAIMS = f"""include "{PLOTKIN}"
 claim sim: M -> N implies cbv(M) joins cbv(N)
 claim image: cbv(M) : term
 """
+
+
+PAD = HERE.parent / "data" / "translate" / "pad.calc"
+
+
+def pad_run(size: int) -> None:
+    """One enumeration of pad.calc's claim (in a process of its own): cases, verdict, peak."""
+    spec = load_file(PAD)
+    t0 = time.perf_counter()
+    out, _ = run_claims(spec, list(spec.claims), RunOptions(bounds=Bounds(size=size)))
+    total = time.perf_counter() - t0
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+    print(f"{size:>4} {out[0].tried:>8} {out[0].verdict:>9} {total:>8.1f} {peak:>14.0f}",
+          flush=True)
+
+
+def pad_memory() -> None:
+    print("peak memory of unpad(pad(M)) == M by size (refuted first at size 11):")
+    print(f"{'size':>4} {'cases':>8} {'verdict':>9} {'seconds':>8} {'peak RSS MiB':>14}",
+          flush=True)
+    for size in (8, 9, 10, 11):
+        subprocess.run([sys.executable, __file__, "--pad", str(size)], check=True)
 
 
 def main() -> None:
@@ -79,4 +110,10 @@ def main() -> None:
 
 
 if __name__ == "__main__":
-    main()
+    if sys.argv[1:2] == ["--pad"]:
+        pad_run(int(sys.argv[2]))
+    elif sys.argv[1:2] == ["--pad-only"]:
+        pad_memory()
+    else:
+        main()
+        pad_memory()

@@ -1,0 +1,1 @@
+"""Why a claim fails: the rules and equations a counterexample needs."""

@@ -327,25 +327,93 @@ def print_abstract(calc: Calculus, term: Term) -> str:
     >>> print_abstract(calc, node("lam", [node("app", [bound(0), name("y")])], [1]))
     'lam(x.app(x, y))'
     """
-    namer = _Namer(_reading(calc), term)
+    if term.loose:
+        raise ValueError("cannot print a term with loose bound indices")
+    if type(term) is not Node:
+        return term.name  # type: ignore[attr-defined]
+    last = _last_root
+    if last[0] is calc and last[1] == term.free and last[3].count[0] <= _MEMO_ENTRIES:
+        reading, root = last[2], last[3]
+    else:
+        reading = _reading(calc)
+        root = _abstract_root(reading, term.free)
+        _last_root[:] = [calc, term.free, reading, root]
+    # The printed text of a subterm depends only on it, the names of the
+    # enclosing binders and the term's free names (the namer's state), and so
+    # do the names chosen for a binder: both are memoised across calls, in a
+    # tree of binder environments (an enumerated stream shares its subterms).
+    namer: list[_Namer] = []
 
-    def go(t: Term, env: list[str]) -> str:
-        if isinstance(t, Name):
-            return t.name
-        if isinstance(t, Bound):
-            return env[-1 - t.index]
-        assert isinstance(t, Node)
+    def go(t: Node, env: _Env, store: bool) -> str:
+        if store:
+            got = env.texts.get(t)
+            if got is not None:
+                return got
+        con = t.con
         if not t.args:
-            return t.con
+            return con
         parts = []
-        for i, (a, k) in enumerate(zip(t.args, t.binders, strict=True)):
-            names = _bind(namer, t.con, i, k, env)
-            body = go(a, env + names)
-            parts.append("".join(f"{n}." for n in names) + body)
-        return f"{t.con}({', '.join(parts)})"
+        i = 0
+        for a, k in zip(t.args, t.binders, strict=True):
+            inner = env
+            prefix = ""
+            if k:
+                step = env.under.get((con, i))
+                if step is None:
+                    if not namer:
+                        namer.append(_Namer(reading, term))
+                    names = _bind(namer[0], con, i, k, list(env.names))
+                    step = env.under[(con, i)] = (
+                        "".join(f"{n}." for n in names), _Env((*env.names, *names), root.count))
+                prefix, inner = step
+            kind = type(a)
+            if kind is Bound:
+                parts.append(prefix + inner.names[-1 - a.index])  # type: ignore[attr-defined]
+            elif kind is Name:
+                parts.append(prefix + a.name)  # type: ignore[attr-defined]
+            else:
+                parts.append(prefix + go(a, inner, True))  # type: ignore[arg-type]
+            i += 1
+        text = f"{con}({', '.join(parts)})"
+        if store:
+            env.texts[t] = text
+            root.count[0] += 1
+        return text
 
-    return go(term, [])
+    return go(term, root, False)
 
+
+class _Env:
+    """Printed subterms under one list of enclosing binder names, and the
+    binder names (with their printed prefix ``x.``) chosen below it."""
+
+    __slots__ = ("names", "texts", "under", "count")
+
+    def __init__(self, names: tuple[str, ...], count: list[int]):
+        self.names = names
+        self.texts: dict[Term, str] = {}
+        self.under: dict[tuple[str, int], tuple[str, _Env]] = {}
+        self.count = count  # shared by the whole tree: entries stored
+
+
+_last_root: list = [None, None, None, None]  # calc, free names, reading, memo: the last used
+_MEMO_ENTRIES = 1 << 18  # printed subterms kept per calculus before the memo starts again
+
+
+def _abstract_root(reading: _Reading, free: tuple[str, ...]) -> _Env:
+    """The memo of :func:`print_abstract` for terms with these free names.
+
+    Kept on the calculus's reading, one tree per set of free names; a tree is
+    dropped when it holds more than ``_MEMO_ENTRIES`` texts and all of them
+    when there are more than 64 sets, so memory stays bounded.
+    """
+    roots: dict[tuple[str, ...], _Env] = reading.__dict__.setdefault("_abstract_roots", {})
+    got = roots.get(free)
+    if got is None or got.count[0] > _MEMO_ENTRIES:
+        if len(roots) > 64:
+            roots.clear()
+        got = roots[free] = _Env((), [0])
+    return got
 
 def _bind(namer: _Namer, con: str, arg: int, k: int, env: list[str]) -> list[str]:
     names: list[str] = []

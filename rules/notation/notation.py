@@ -372,7 +372,7 @@ def print_abstract(calc: Calculus, term: Term) -> str:
             elif kind is Name:
                 parts.append(prefix + a.name)  # type: ignore[attr-defined]
             else:
-                parts.append(prefix + go(a, inner, True))  # type: ignore[arg-type]
+                parts.append(prefix + go(a, inner, a.size <= _MEMO_SIZE))  # type: ignore[arg-type]
             i += 1
         text = f"{con}({', '.join(parts)})"
         if store:
@@ -397,7 +397,8 @@ class _Env:
 
 
 _last_root: list = [None, None, None, None]  # calc, free names, reading, memo: the last used
-_MEMO_ENTRIES = 1 << 18  # printed subterms kept per calculus before the memo starts again
+_MEMO_ENTRIES = 1 << 16  # printed subterms kept per calculus before the memo starts again
+_MEMO_SIZE = 6  # larger subterms are rarely shared: not stored
 
 
 def _abstract_root(reading: _Reading, free: tuple[str, ...]) -> _Env:

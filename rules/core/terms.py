@@ -77,7 +77,7 @@ class Node(Term):
 # nothing else holds whenever it has doubled since the last sweep and at every
 # full garbage collection; so memory stays within twice the live terms.
 _table: dict[tuple, Term] = {}
-_SWEEP_FLOOR = 1 << 16
+_SWEEP_FLOOR = 1 << 13
 _sweep_at = _SWEEP_FLOOR
 _sweeping = False
 

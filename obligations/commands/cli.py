@@ -13,7 +13,6 @@ import gc
 import os
 import sys
 import traceback
-from importlib.metadata import PackageNotFoundError, version
 
 import click
 
@@ -22,10 +21,20 @@ from calcscout.rules.core.spec import Bounds, Calculus, Spec
 
 
 def _version() -> str:
+    # Imported here: importlib.metadata costs tens of milliseconds of every start.
+    from importlib.metadata import PackageNotFoundError, version
+
     try:
         return version("calcscout")
     except PackageNotFoundError:  # pragma: no cover - running from a source tree
         return "0.0+source"
+
+
+def _show_version(ctx: click.Context, param: click.Parameter, value: bool) -> None:
+    if not value or ctx.resilient_parsing:
+        return
+    click.echo(f"calcscout, version {_version()}")
+    ctx.exit()
 
 
 # ---------------------------------------------------------------- shared options
@@ -68,7 +77,8 @@ def calculus(spec: Spec, name: str) -> Calculus:
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
-@click.version_option(_version(), "--version", prog_name="calcscout")
+@click.option("--version", is_flag=True, expose_value=False, is_eager=True,
+              callback=_show_version, help="Show the version and exit.")
 def cli() -> None:
     """Check claims about calculi and translations between them, exhaustively up to bounds.
 

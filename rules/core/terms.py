@@ -184,7 +184,7 @@ def node(con: str, args: Sequence[Term] = (), binders: Sequence[int] | None = No
     size = 1
     loose = 0
     free: tuple[str, ...] = ()
-    for a, k in zip(args, binders):  # lengths checked above
+    for a, k in zip(args, binders, strict=False):  # lengths checked above
         size += a.size
         if a.loose - k > loose:
             loose = a.loose - k

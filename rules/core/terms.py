@@ -66,10 +66,13 @@ class Bound(Term):
 class Node(Term):
     """A constructor applied to arguments; ``binders[i]`` names bound in arg i."""
 
-    __slots__ = ("con", "args", "binders")
+    __slots__ = ("con", "args", "binders", "states")
     con: str
     args: tuple[Term, ...]
     binders: tuple[int, ...]
+    # The sort automata's memo for this term (rules/core/sorts.py owns it):
+    # stored on the term, a side table of weak keys cost a lookup per node.
+    states: dict | None
 
 
 # The intern table is a plain dictionary (a weak-value one cost about 70% of
@@ -181,6 +184,7 @@ def node(con: str, args: Sequence[Term] = (), binders: Sequence[int] | None = No
     t.con = con
     t.args = args  # type: ignore[assignment]
     t.binders = binders  # type: ignore[assignment]
+    t.states = None
     size = 1
     loose = 0
     free: tuple[str, ...] = ()

@@ -289,6 +289,8 @@ def match(
     Several bindings come only from contexts (``E[P]``) and ambiguous sorts
     never add any; each is yielded once.
     """
+    if type(pattern) is PCon and (type(term) is not Node or term.con != pattern.con):
+        return  # the usual miss (equations tried in order), before any set is built
     b = dict(binding) if binding else {}
     taken = frozenset(term.free) | binding_names(b) | frozenset(avoid)
     m = _Matcher(calc)

@@ -409,11 +409,11 @@ def test_abstract_printing_memo_depends_on_the_free_names():
     Family: the memo's key must hold everything a printed name depends on
     (enclosing binders, free names); checked with a binder under a binder
     and a free name equal to the first canonical name."""
+    import conftest
+
     from calcscout.rules.core.terms import bound, name, node
     from calcscout.rules.loading.load import load_file
     from calcscout.rules.notation.notation import print_abstract
-
-    import conftest
 
     calc = load_file(conftest.LIBRARY / "lambda.calc").calculi["lambda"]
     ident = node("lam", (bound(0),), (1,))

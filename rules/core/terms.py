@@ -22,6 +22,7 @@ True
 from __future__ import annotations
 
 import gc
+import itertools
 import sys
 from collections.abc import Iterable, Mapping, Sequence
 
@@ -77,28 +78,41 @@ class Node(Term):
 
 # The intern table is a plain dictionary (a weak-value one cost about 70% of
 # enumeration: a weak reference and its callback per term), swept of the terms
-# nothing else holds whenever it has doubled since the last sweep and at every
-# full garbage collection; so memory stays within twice the live terms.
+# nothing else holds.  Generational, because most terms die young (a stream
+# of enumerated terms, the intermediate results of a case): every
+# ``_YOUNG`` new entries only the entries made since the last sweep are
+# visited; the whole table when it has doubled since the last full sweep and
+# at every full garbage collection.  So the work per term stays constant, a
+# stream keeps at most ``_YOUNG`` dead terms, and in all at most as many dead
+# terms as live ones are kept.
 _table: dict[tuple, Term] = {}
-_SWEEP_FLOOR = 1 << 13
-_sweep_at = _SWEEP_FLOOR
+_YOUNG = 1 << 13
+_FULL_FLOOR = 1 << 16
+_old = 0  # entries at the end of the last sweep: the older ones
+_young_at = _YOUNG  # the next young sweep
+_full_at = _FULL_FLOOR  # the next full sweep
 _sweeping = False
 
 
-def sweep() -> int:
+def sweep(young: bool = False) -> int:
     """Drop the interned terms that nothing outside the table holds; how many.
 
+    With ``young``, only the entries made since the last sweep are visited.
     Keys are visited newest first: a term is always interned after its
     arguments, so when a dead parent goes, its arguments' counts have dropped
     by the time they are visited, and one pass frees whole dead trees.
     """
-    global _sweeping, _sweep_at
+    global _sweeping, _old, _young_at, _full_at
     if _sweeping:
         return 0
     _sweeping = True
     try:
         table = _table
-        keys = list(table)
+        if young:
+            keys = list(itertools.islice(reversed(table), max(0, len(table) - _old)))
+            keys.reverse()
+        else:
+            keys = list(table)
         count = sys.getrefcount
         dropped = 0
         while keys:
@@ -108,10 +122,17 @@ def sweep() -> int:
                 del table[key]
                 dropped += 1
             del t
-        _sweep_at = max(_SWEEP_FLOOR, 2 * len(table))
+        _old = len(table)
+        _young_at = _old + _YOUNG
+        if not young:
+            _full_at = max(_FULL_FLOOR, 2 * _old)
         return dropped
     finally:
         _sweeping = False
+
+
+def _collect() -> None:
+    sweep(young=len(_table) < _full_at)
 
 
 def _calibrate() -> int:
@@ -178,8 +199,8 @@ def node(con: str, args: Sequence[Term] = (), binders: Sequence[int] | None = No
         return got
     if len(binders) != len(args):
         raise ValueError(f"{con}: {len(args)} arguments but {len(binders)} binder counts")
-    if len(_table) >= _sweep_at:
-        sweep()
+    if len(_table) >= _young_at:
+        _collect()
     t = _new(Node)
     t.con = con
     t.args = args  # type: ignore[assignment]

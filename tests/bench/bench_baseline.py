@@ -8,14 +8,15 @@ the same answer, and prints wall and CPU seconds and the ratio
 baseline / calcscout (1.0 = parity; higher is better for calcscout).  It also
 times ``calcscout lint`` on a ten-line file.
 
-Run: .venv/bin/python tests/bench/bench_baseline.py [--quick]
-(``--quick`` uses size 10 / size 8 instead of 12 / 10.)
+Run: .venv/bin/python tests/bench/bench_baseline.py [--quick] [--jobs] [--scaling]
+(``--quick`` uses size 10 / size 8 instead of 12 / 10; ``--jobs`` adds the
+speed-up of ``--jobs 2`` on the pad claims; ``--scaling`` the cost per case and
+peak memory of the pad claims at sizes 7 to 10.)
 """
 
 from __future__ import annotations
 
 import os
-import resource
 import subprocess
 import sys
 import tempfile
@@ -138,17 +139,26 @@ print(cases, back, sim)
 '''
 
 
-def run(argv: list[str], stdin: str | None = None) -> tuple[str, float, float]:
+def run(argv: list[str]) -> tuple[str, float, float]:
     """Output, wall seconds and CPU seconds (user + system) of one process."""
-    before = resource.getrusage(resource.RUSAGE_CHILDREN)
-    start = time.perf_counter()
-    done = subprocess.run(argv, capture_output=True, text=True, check=False, cwd=ROOT)
-    wall = time.perf_counter() - start
-    after = resource.getrusage(resource.RUSAGE_CHILDREN)
-    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
-    if done.returncode not in (0, 1):
-        raise SystemExit(f"{argv} failed ({done.returncode}):\n{done.stderr}")
-    return done.stdout, wall, cpu
+    out, wall, cpu, _ = run_measured(argv)
+    return out, wall, cpu
+
+
+def run_measured(argv: list[str]) -> tuple[str, float, float, float]:
+    """Output, wall and CPU seconds, and peak resident MiB of one process."""
+    with tempfile.TemporaryFile() as err:
+        start = time.perf_counter()
+        proc = subprocess.Popen(argv, stdout=subprocess.PIPE, stderr=err, cwd=ROOT)
+        assert proc.stdout is not None
+        out = proc.stdout.read().decode()
+        _, status, usage = os.wait4(proc.pid, 0)
+        wall = time.perf_counter() - start
+        proc.returncode = os.waitstatus_to_exitcode(status)
+        if proc.returncode not in (0, 1):
+            err.seek(0)
+            raise SystemExit(f"{argv} failed ({proc.returncode}):\n{err.read().decode()}")
+    return out, wall, usage.ru_utime + usage.ru_stime, usage.ru_maxrss / 1024
 
 
 def script(text: str, *args: int) -> tuple[str, float, float]:
@@ -188,6 +198,11 @@ def main() -> None:
         raise SystemExit(f"pad: calcscout disagrees with the script ({cases} cases):\n{ours_out}")
     row(f"pad/unpad size {size_pad} names 1 ({cases} cases)", ours, base)
 
+    if "--jobs" in sys.argv:
+        jobs(size_pad)
+    if "--scaling" in sys.argv:
+        scaling()
+
     with tempfile.NamedTemporaryFile("w", suffix=".calc", delete=False) as f:
         f.write(LAMBDA.read_text().split("# Church")[0])
     try:
@@ -197,6 +212,28 @@ def main() -> None:
     empty = min((run([sys.executable, "-c", "pass"])[1:] for _ in range(5)), key=lambda r: r[0])
     print(f"\n`calcscout lint` on a ten-line file: {lint[0]:.3f} s wall, {lint[1]:.3f} s CPU"
           f" (best of 5; an empty python process: {empty[0]:.3f} s wall)")
+
+
+def jobs(size: int) -> None:
+    """``--jobs 2`` against ``--jobs 1`` on the pad claims (same run)."""
+    argv = [*CALCSCOUT, "check", str(PAD), "--size", str(size), "--names", "1", "--steps", "12"]
+    one = run_measured([*argv, "--jobs", "1"])
+    two = run_measured([*argv, "--jobs", "2"])
+    if one[0].count("holds") != 2 or two[0].count("holds") != 2:
+        raise SystemExit("pad: --jobs changed a verdict")
+    print(f"\n--jobs 2 on pad/unpad size {size}: {one[1]:.2f} s -> {two[1]:.2f} s wall,"
+          f" speed-up {one[1] / two[1]:.2f}x (peak RSS of the parent {one[3]:.0f} /"
+          f" {two[3]:.0f} MiB)")
+
+
+def scaling() -> None:
+    """Cost per case and peak memory of the pad claims as the size grows."""
+    print(f"\n{'pad size':>8} {'cases':>7} {'CPU s':>7} {'us/case':>8} {'peak MiB':>9}")
+    for size in (7, 8, 9, 10):
+        out, _, cpu, rss = run_measured([*CALCSCOUT, "check", str(PAD), "--size", str(size),
+                                         "--names", "1", "--steps", "12"])
+        cases = int(out.split("pad_back")[1].split("case")[0])
+        print(f"{size:>8} {cases:>7} {cpu:>7.2f} {cpu / (2 * cases) * 1e6:>8.0f} {rss:>9.0f}")
 
 
 if __name__ == "__main__":

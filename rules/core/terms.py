@@ -86,7 +86,7 @@ class Node(Term):
 # stream keeps at most ``_YOUNG`` dead terms, and in all at most as many dead
 # terms as live ones are kept.
 _table: dict[tuple, Term] = {}
-_YOUNG = 1 << 13
+_YOUNG = 1 << 11
 _FULL_FLOOR = 1 << 16
 _old = 0  # entries at the end of the last sweep: the older ones
 _young_at = _YOUNG  # the next young sweep

@@ -299,3 +299,30 @@ def test_decompositions_plug_back(t):
     c = calc("contexts.calc", "under")
     for ctx, s in decompositions(c, "C", t):
         assert ctx.plug(s) is t
+
+
+def test_direct_matcher_gives_the_generator_binding():
+    """Patterns without contexts take a direct matcher (for speed); it must give
+    the very binding the general matcher gives, fresh names included.
+
+    Family: fresh names opened in one argument must stay taken in the next,
+    also when the binder sits inside a nested constructor; checked with two
+    lambdas side by side and a repeated binder name."""
+    from calcscout.rules.rewriting.match import _Matcher, binding_names
+
+    c = calc("misc.calc", "eqs")
+    pats = [
+        PCon("pair", (PCon("lam", (PAbs(("x",), PMeta("M", "term")),)),
+                      PCon("lam", (PAbs(("y",), PMeta("N", "term")),)))),
+        PCon("pair", (PCon("lam", (PAbs(("x",), PMeta("M", "term")),)),) * 2),
+    ]
+    for p in pats:
+        for text in ("pair(lam(x.app(x, y)), lam(z.app(z, y)))",
+                     "pair(lam(x.x), lam(x.x))", "pair(lam(x.y), y)"):
+            t = term(c, text)
+            fast = list(match(c, p, t))
+            taken = frozenset(t.free) | binding_names({})
+            slow = [b for b, _ in _Matcher(c).match(p, t, {}, taken)]
+            assert fast == slow
+    [b] = match(c, pats[0], term(c, "pair(lam(x.x), lam(x.x))"))
+    assert b["x"] is not b["y"]

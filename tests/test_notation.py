@@ -467,3 +467,26 @@ def test_an_extension_whose_new_name_a_base_literal_spells_is_refused() -> None:
     with pytest.raises(CalcError) as info:
         load_text(base + "calculus u extends t {\n  names var y\n}\n")
     assert "the literal y of the notation \"M y N\" spells a name of var" in info.value.render()
+
+
+def test_abstract_printing_memo_depends_on_the_free_names():
+    """print_abstract memoises printed subterms per calculus (for speed); the
+    same subterm must still get other binder names where the whole term has
+    other free names.
+
+    Family: the memo's key must hold everything a printed name depends on
+    (enclosing binders, free names); checked with a binder under a binder
+    and a free name equal to the first canonical name."""
+    import conftest
+
+    from calcscout.rules.core.terms import bound, name, node
+    from calcscout.rules.loading.load import load_file
+    from calcscout.rules.notation.notation import print_abstract
+
+    calc = load_file(conftest.LIBRARY / "lambda.calc").calculi["lambda"]
+    ident = node("lam", (bound(0),), (1,))
+    k = node("lam", (node("lam", (bound(1),), (1,)),), (1,))
+    assert print_abstract(calc, node("app", (ident, k))) == "app(lam(x.x), lam(x.lam(y.x)))"
+    with_x = node("app", (name("x"), node("app", (ident, k))))
+    assert print_abstract(calc, with_x) == "app(x, app(lam(y.y), lam(y.lam(z.y))))"
+    assert print_abstract(calc, node("app", (ident, k))) == "app(lam(x.x), lam(x.lam(y.x)))"

@@ -112,3 +112,19 @@ def test_the_intern_table_lets_unused_terms_go() -> None:
     del made
     gc.collect()
     assert len(T._table) < before + 100
+
+
+def test_a_sweep_keeps_live_terms_and_their_identity() -> None:
+    """The intern table is swept rather than weak (for speed): a sweep must
+    never drop a term someone holds, directly or as an argument of one."""
+    inner = app(v("x"), v("swept"))
+    outer = lam("x", app(inner, v("kept")))
+    key_before = len(T._table)
+    for i in range(300):
+        lam("x", app(v("x"), v(f"dead{i}")))
+    T.sweep()
+    assert len(T._table) < key_before + 50
+    assert app(v("x"), v("swept")) is inner
+    assert lam("x", app(app(v("x"), v("swept")), v("kept"))) is outer
+    held_only_by_outer = outer.args[0]
+    assert T.node("app", held_only_by_outer.args) is held_only_by_outer

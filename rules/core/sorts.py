@@ -15,7 +15,6 @@ a bound name the state of the names sort its binder was declared with.  So
 from __future__ import annotations
 
 import itertools
-import weakref
 from collections.abc import Iterable
 from functools import cached_property
 
@@ -69,7 +68,6 @@ class Grammar:
             ns: frozenset(v) for ns, v in names_states.items()
         }
         self._delta: dict[tuple, State] = {}
-        self._memo: weakref.WeakKeyDictionary[Term, dict] = weakref.WeakKeyDictionary()
 
     # ------------------------------------------------------------ transitions
 
@@ -101,11 +99,10 @@ class Grammar:
                 return self.names_state.get(env[term.index], EMPTY)
             return EMPTY
         assert isinstance(term, Node)
-        key = env[: term.loose]
-        per_term = self._memo.get(term)
+        key = (self, env[: term.loose]) if term.loose else self
+        per_term = term.states
         if per_term is None:
-            per_term = {}
-            self._memo[term] = per_term
+            per_term = term.states = {}
         got = per_term.get(key)
         if got is not None:
             return got

@@ -9,6 +9,7 @@ turns them into the locally nameless world of :mod:`calcscout.rules.core.terms`.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import Union
 
 
@@ -120,11 +121,11 @@ class Shape:
     con: str
     binder_sorts: tuple[tuple[str, ...], ...]
 
-    @property
+    @cached_property  # read at every node a rule or translation builds
     def arity(self) -> int:
         return len(self.binder_sorts)
 
-    @property
+    @cached_property
     def binders(self) -> tuple[int, ...]:
         return tuple(len(b) for b in self.binder_sorts)
 

@@ -5,8 +5,8 @@ Bound names are de Bruijn indices and free names are strings, so two
 are the same Python object.  Equality is identity and hashing is O(1), which
 makes terms cheap keys for memo tables and cheap nodes for networkx graphs.
 
-The intern table holds its terms weakly: a stream of enumerated terms does not
-accumulate in memory.
+The intern table lets go of the terms nothing else holds (see :func:`sweep`):
+a stream of enumerated terms does not accumulate in memory.
 
 An abstraction argument binding ``k`` names (``x.y.M`` has ``k = 2``) is a
 plain body with ``k`` more indices in scope: the last binder is index 0, so in
@@ -21,8 +21,9 @@ True
 
 from __future__ import annotations
 
+import gc
+import itertools
 import sys
-import weakref
 from collections.abc import Iterable, Mapping, Sequence
 
 sys.setrecursionlimit(max(sys.getrecursionlimit(), 20000))
@@ -66,13 +67,93 @@ class Bound(Term):
 class Node(Term):
     """A constructor applied to arguments; ``binders[i]`` names bound in arg i."""
 
-    __slots__ = ("con", "args", "binders")
+    __slots__ = ("con", "args", "binders", "states")
     con: str
     args: tuple[Term, ...]
     binders: tuple[int, ...]
+    # The sort automata's memo for this term (rules/core/sorts.py owns it):
+    # stored on the term, a side table of weak keys cost a lookup per node.
+    states: dict | None
 
 
-_table: weakref.WeakValueDictionary = weakref.WeakValueDictionary()
+# The intern table is a plain dictionary (a weak-value one cost about 70% of
+# enumeration: a weak reference and its callback per term), swept of the terms
+# nothing else holds.  Generational, because most terms die young (a stream
+# of enumerated terms, the intermediate results of a case): every
+# ``_YOUNG`` new entries only the entries made since the last sweep are
+# visited; the whole table when it has doubled since the last full sweep and
+# at every full garbage collection.  So the work per term stays constant, a
+# stream keeps at most ``_YOUNG`` dead terms, and in all at most as many dead
+# terms as live ones are kept.
+_table: dict[tuple, Term] = {}
+_YOUNG = 1 << 11
+_FULL_FLOOR = 1 << 16
+_old = 0  # entries at the end of the last sweep: the older ones
+_young_at = _YOUNG  # the next young sweep
+_full_at = _FULL_FLOOR  # the next full sweep
+_sweeping = False
+
+
+def sweep(young: bool = False) -> int:
+    """Drop the interned terms that nothing outside the table holds; how many.
+
+    With ``young``, only the entries made since the last sweep are visited.
+    Keys are visited newest first: a term is always interned after its
+    arguments, so when a dead parent goes, its arguments' counts have dropped
+    by the time they are visited, and one pass frees whole dead trees.
+    """
+    global _sweeping, _old, _young_at, _full_at
+    if _sweeping:
+        return 0
+    _sweeping = True
+    try:
+        table = _table
+        if young:
+            keys = list(itertools.islice(reversed(table), max(0, len(table) - _old)))
+            keys.reverse()
+        else:
+            keys = list(table)
+        count = sys.getrefcount
+        dropped = 0
+        while keys:
+            key = keys.pop()
+            t = table.get(key)
+            if t is not None and count(t) <= _DEAD:
+                del table[key]
+                dropped += 1
+            del t
+        _old = len(table)
+        _young_at = _old + _YOUNG
+        if not young:
+            _full_at = max(_FULL_FLOOR, 2 * _old)
+        return dropped
+    finally:
+        _sweeping = False
+
+
+def _collect() -> None:
+    sweep(young=len(_table) < _full_at)
+
+
+def _calibrate() -> int:
+    """The reference count :func:`sweep` sees for a term only the table holds
+    (measured, since interpreters differ in what a local variable counts)."""
+    table = {("probe",): object()}
+    keys = list(table)
+    key = keys.pop()
+    t = table.get(key)
+    return sys.getrefcount(t)
+
+
+_DEAD = _calibrate()
+
+
+def _after_gc(phase: str, info: dict) -> None:
+    if phase == "stop" and info.get("generation") == 2:
+        sweep()
+
+
+gc.callbacks.append(_after_gc)
 
 
 def name(text: str) -> Name:
@@ -106,22 +187,29 @@ def bound(index: int) -> Bound:
 
 
 def node(con: str, args: Sequence[Term] = (), binders: Sequence[int] | None = None) -> Node:
-    args = tuple(args)
-    binders = (0,) * len(args) if binders is None else tuple(binders)
+    if type(args) is not tuple:
+        args = tuple(args)
+    if binders is None:
+        binders = (0,) * len(args)
+    elif type(binders) is not tuple:
+        binders = tuple(binders)
     key = (con, binders, *args)
     got = _table.get(key)
     if got is not None:
         return got
     if len(binders) != len(args):
         raise ValueError(f"{con}: {len(args)} arguments but {len(binders)} binder counts")
-    t = Node.__new__(Node)
+    if len(_table) >= _young_at:
+        _collect()
+    t = _new(Node)
     t.con = con
-    t.args = args
-    t.binders = binders
+    t.args = args  # type: ignore[assignment]
+    t.binders = binders  # type: ignore[assignment]
+    t.states = None
     size = 1
     loose = 0
     free: tuple[str, ...] = ()
-    for a, k in zip(args, binders, strict=True):
+    for a, k in zip(args, binders, strict=False):  # lengths checked above
         size += a.size
         if a.loose - k > loose:
             loose = a.loose - k
@@ -132,6 +220,9 @@ def node(con: str, args: Sequence[Term] = (), binders: Sequence[int] | None = No
     t.loose = loose
     _table[key] = t
     return t
+
+
+_new = object.__new__
 
 
 def _merge(first: tuple[str, ...], then: tuple[str, ...]) -> tuple[str, ...]:

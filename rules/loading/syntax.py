@@ -210,8 +210,45 @@ class RawFile:
 @cache
 def _parser() -> Lark:
     grammar = (Path(__file__).with_name("grammar.lark")).read_text(encoding="utf-8")
-    return Lark(grammar, parser="lalr", lexer="basic", propagate_positions=True,
-                maybe_placeholders=True)
+    options = dict(parser="lalr", lexer="basic", propagate_positions=True,
+                   maybe_placeholders=True)
+    # Building the parser tables took about 60 ms of every process; lark keeps
+    # them in a file it checks against the grammar and options.  The file is a
+    # pickle, so only in a folder of the user's own that no one else can write.
+    where = _cache_file(grammar)
+    if where is not None:
+        try:
+            return Lark(grammar, cache=str(where), **options)
+        except Exception:  # noqa: BLE001 - a damaged cache file: build afresh
+            pass
+    return Lark(grammar, **options)
+
+
+def _cache_file(grammar: str) -> Path | None:
+    """``~/.cache/calcscout/grammar-HASH.lark`` (or under ``XDG_CACHE_HOME``), or
+    None where that folder cannot be made private to this user
+    (``CALCSCOUT_NO_CACHE=1`` turns the cache off)."""
+    import hashlib
+    import os
+    import sys
+
+    import lark
+
+    if os.environ.get("CALCSCOUT_NO_CACHE") or not hasattr(os, "getuid"):
+        return None
+    base = os.environ.get("XDG_CACHE_HOME") or os.path.join(os.path.expanduser("~"), ".cache")
+    folder = Path(base) / "calcscout"
+    try:
+        folder.mkdir(mode=0o700, parents=True, exist_ok=True)
+        st = folder.stat()
+        if st.st_uid != os.getuid() or st.st_mode & 0o022:
+            return None
+    except OSError:
+        return None
+    key = hashlib.sha256(
+        f"{lark.__version__}|{sys.version_info[:2]}|{grammar}".encode()
+    ).hexdigest()[:24]
+    return folder / f"grammar-{key}.lark"
 
 
 def read_text_file(path: str | Path, shown: str | None = None) -> str:

@@ -97,8 +97,9 @@ class _Builder:
             raise ValueError(f"{p.con} takes {shape.arity} arguments, not {len(p.args)}")
         args: list[Term] = []
         binders: list[int] = []
+        shape_binders = shape.binders if shape is not None else None
         for i, a in enumerate(p.args):
-            want = shape.binders[i] if shape is not None else None
+            want = shape_binders[i] if shape_binders is not None else None
             if not isinstance(a, PAbs):
                 if want:
                     raise ValueError(f"argument {i + 1} of {p.con} binds {want} names")

@@ -289,11 +289,43 @@ def match(
     Several bindings come only from contexts (``E[P]``) and ambiguous sorts
     never add any; each is yielded once.
     """
+    if type(pattern) is PCon and (type(term) is not Node or term.con != pattern.con):
+        return  # the usual miss (equations tried in order), before any set is built
     b = dict(binding) if binding else {}
     taken = frozenset(term.free) | binding_names(b) | frozenset(avoid)
     m = _Matcher(calc)
+    if _is_plain(pattern):
+        if m.one(pattern, term, b, taken) is not None:
+            yield b
+        return
     for out, _ in m.match(pattern, term, b, taken):
         yield out
+
+
+_plain_memo: dict[int, tuple[Pattern, bool]] = {}
+
+
+def _is_plain(p: Pattern) -> bool:
+    """Whether ``p`` has no context hole: then it matches in at most one way,
+    and :meth:`_Matcher.one` finds that way without generators."""
+    got = _plain_memo.get(id(p))
+    if got is not None and got[0] is p:
+        return got[1]
+    out = _plain(p, top=True)
+    if len(_plain_memo) > 4096:
+        _plain_memo.clear()
+    _plain_memo[id(p)] = (p, out)
+    return out
+
+
+def _plain(p: Pattern, top: bool = False) -> bool:
+    if isinstance(p, (PMeta, PName)):
+        return True
+    if isinstance(p, PCon):
+        return all(
+            _plain(a.body) if isinstance(a, PAbs) else _plain(a) for a in p.args
+        )
+    return False  # contexts, and what the general matcher reports as misuse
 
 
 class _Matcher:
@@ -346,6 +378,68 @@ class _Matcher:
         if isinstance(p, (PSubst, PCall)):
             raise ValueError("substitutions and calls are not patterns (right-hand sides only)")
         raise TypeError(f"not a pattern: {p!r}")
+
+    def one(self, p: Pattern, t: Term, b: dict,
+            taken: frozenset[str]) -> frozenset[str] | None:
+        """:meth:`match` for a pattern without contexts: None if it does not
+        match, else the names taken after it, ``b`` extended in place (the
+        same binding, fresh names included, as the only one :meth:`match`
+        yields)."""
+        if isinstance(p, PMeta):
+            sort = self.calc.sorts.get(p.sort)
+            if sort is not None and sort.is_context:
+                raise ValueError(f"context metavariable {p.name} used without a hole")
+            old = b.get(p.name)
+            if old is not None:
+                return taken if old is t else None
+            if is_member(self.calc, self.g, t, p.sort):
+                b[p.name] = t
+                return taken
+            return None
+        if isinstance(p, PName):
+            if not isinstance(t, Name) or self.calc.names_sort_of(t.name) != p.names_sort:
+                return None
+            old = b.get(p.name)
+            if old is not None:
+                return taken if old is t else None
+            b[p.name] = t
+            return taken
+        assert isinstance(p, PCon)
+        if not isinstance(t, Node) or t.con != p.con or len(t.args) != len(p.args):
+            return None
+        shape = self.calc.shapes.get(p.con)
+        if shape is not None and shape.binders != t.binders:
+            return None
+        for i, a in enumerate(p.args):
+            k = t.binders[i]
+            body = t.args[i]
+            if not isinstance(a, PAbs):
+                got = self.one(a, body, b, taken) if k == 0 else None
+                if got is None:
+                    return None
+                taken = got
+                continue
+            if len(a.names) != k:
+                return None
+            sorts = binder_sorts(self.calc, t.con, i, k)
+            names: list[Name] = []
+            for n, ns in zip(a.names, sorts, strict=True):
+                old = b.get(n)
+                if old is not None:
+                    if not isinstance(old, Name) or old.name in body.free:
+                        return None
+                    names.append(old)
+                    continue
+                fresh = fresh_name(taken, base=f"{ns}:")
+                taken = taken | {fresh}
+                v = name(fresh)
+                b[n] = v
+                names.append(v)
+            got = self.one(a.body, open_body(body, names), b, taken)
+            if got is None:
+                return None
+            taken = got
+        return taken
 
     def _args(self, p: PCon, t: Node, i: int, b: dict, taken):
         if i == len(p.args):

@@ -7,6 +7,7 @@ up to the size, its free names made canonical, filtered by membership.
 
 from __future__ import annotations
 
+import gc
 import itertools
 import os
 import subprocess
@@ -29,7 +30,7 @@ from calcscout.rules.core.enumerate import (
 )
 from calcscout.rules.core.sorts import grammar
 from calcscout.rules.core.spec import Calculus
-from calcscout.rules.core.terms import Name, Node, Term, bound, name, node
+from calcscout.rules.core.terms import Name, Node, Term, bound, name, node, sweep
 
 DATA = conftest.DATA / "enum"
 
@@ -424,6 +425,10 @@ def test_shards_split_refinement_and_tuple_streams(refine, n):
 
 
 def test_stream_memory_does_not_hold_the_terms(lam):
+    # start from an intern table with only the live terms of earlier tests in it (it is
+    # swept of dead terms as it grows, not at once: what earlier tests left would count)
+    gc.collect()
+    sweep()
     tracemalloc.start()
     produced = 0
     for _ in enumerate_terms(lam, "term", 11, 0):

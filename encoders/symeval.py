@@ -29,7 +29,7 @@ from rules.spec import (
     Translation,
 )
 
-from .symbolic import SChoice, SLeaf, SNode, Store, Sym, f_and, f_not, f_or, is_false
+from .symbolic import SChoice, SLeaf, SNode, Store, Sym, _extend, f_and, f_not, f_or, is_false
 
 _FAIL = ("fail",)
 
@@ -335,37 +335,39 @@ class SymRules:
         raise EncodingError("a condition on a context or substitution: the SMT engine does not "
                             "encode it", getattr(p, "pos", None))
 
-    def step(self, a: Sym, b: Sym):
-        """``a -> b`` (one step anywhere) as a formula."""
-        key = (id(a), id(b))
+    def step(self, a: Sym, b: Sym, rho: tuple = ()):
+        """``a -> b`` (one step anywhere) as a formula; ``rho`` pairs the binder names of
+        ``a`` with the differently named binders of ``b`` that enclose this point, as in
+        :meth:`~encoders.symbolic.Store.eq`.  (Renaming ``b``'s binders to ``a``'s by
+        substitution would capture where the two terms nest the same names in different
+        orders, as a translation that swaps binders makes them.)"""
+        key = (id(a), id(b), rho)
         got = self._red.get(key)
         if got is not None:
             return got
         s = self.store
         if isinstance(a, SChoice):
-            out = f_or(f_and([g, self.step(x, b)]) for g, x in zip(a.guards, a.branches,
-                                                                   strict=True))
+            out = f_or(f_and([g, self.step(x, b, rho)]) for g, x in zip(a.guards, a.branches,
+                                                                        strict=True))
         elif isinstance(b, SChoice):
-            out = f_or(f_and([g, self.step(a, y)]) for g, y in zip(b.guards, b.branches,
-                                                                   strict=True))
+            out = f_or(f_and([g, self.step(a, y, rho)]) for g, y in zip(b.guards, b.branches,
+                                                                        strict=True))
         else:
             parts = []
             for r in self.rules:
                 v, res = self.root_step(r, a)
                 if not is_false(v):
-                    parts.append(f_and([v, s.eq(res, b)]))
+                    parts.append(f_and([v, s.eq(res, b, rho)]))
             if (isinstance(a, SNode) and isinstance(b, SNode) and a.con == b.con
                     and len(a.args) == len(b.args)
                     and all(len(x) == len(y) for x, y in zip(a.bnames, b.bnames, strict=True))):
-                args_b = [y if nx == ny else s.subst(y, tuple(
-                    (q, s.leaf(p)) for p, q in zip(nx, ny, strict=True) if p != q))
-                    for y, nx, ny in zip(b.args, a.bnames, b.bnames, strict=True)]
-                same = [s.eq(x, y) for x, y in zip(a.args, args_b, strict=True)]
-                for i, (x, y) in enumerate(zip(a.args, args_b, strict=True)):
+                inner = [_extend(rho, nx, ny) for nx, ny in zip(a.bnames, b.bnames, strict=True)]
+                same = [s.eq(x, y, r) for x, y, r in zip(a.args, b.args, inner, strict=True)]
+                for i, (x, y) in enumerate(zip(a.args, b.args, strict=True)):
                     others = [e for j, e in enumerate(same) if j != i]
                     if any(is_false(e) for e in others):
                         continue
-                    parts.append(f_and([*others, self.step(x, y)]))
+                    parts.append(f_and([*others, self.step(x, y, inner[i])]))
             out = f_or(parts)
         self._red[key] = out
         return out

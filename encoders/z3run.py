@@ -89,6 +89,13 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
                 out.seconds = time.perf_counter() - start
                 return out
             model = solver.model()
+            # among the models of this size, the one the enumeration meets first
+            order = _FirstInOrder(solver, enc, lit, k, model, out)
+            model = order.run(nmetas, k)
+            if order.unknown:
+                out.notes.append(f"the solver answered unknown while ordering the "
+                                 f"counterexamples of size {n}: the one reported is of the "
+                                 "smallest size but may not be the first in enumeration order")
             terms = enc.decode(model, env)
             verdict = judge(terms)
             if verdict == "fail":
@@ -119,6 +126,82 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
                       "re-checked by the rewriting engine (a bound cut them)")
     out.seconds = time.perf_counter() - start
     return out
+
+
+class _FirstInOrder:
+    """The counterexample that comes first in the enumeration's order among those of one size.
+
+    The solver has a model at size ``k + 1``.  The choices that place a term in the
+    enumeration are read in preorder — a term's production, then each argument's size and,
+    recursively, its contents, left to right; for a tuple, each term's size then its
+    contents — and the enumeration orders terms lexicographically by them.  So each choice
+    is fixed in turn to its least value that still has a model: ask for one below the
+    model's value; if there is one it is the new model, else the value is kept (held by an
+    assumption literal of its own, so that the solver keeps what it learned).
+    """
+
+    def __init__(self, solver: z3.Solver, enc: Encoding, lit, k: int, model, out: Outcome):
+        self.solver = solver
+        self.u = enc.universe
+        self.ctx = enc.ctx
+        self.fixed = [lit]
+        self.model = model
+        self.out = out
+        self.unknown = False
+
+    def run(self, count: int, k: int) -> z3.ModelRef:
+        self._seq(self.u.root_vars(k, count), 0, k)
+        return self.model
+
+    def _val(self, v) -> int:
+        return self.model.eval(v, model_completion=True).as_long()
+
+    def _least(self, options: list[tuple[tuple, object]], current: tuple) -> None:
+        """Fix the least option (key, condition) that has a model; the model's is ``current``."""
+        while True:
+            lower = [c for key, c in options if key < current]
+            if not lower or self.unknown:
+                break
+            self.out.queries += 1
+            r = self.solver.check(*self.fixed, z3.Or(lower))
+            if r != z3.sat:
+                self.unknown = self.unknown or r == z3.unknown
+                break
+            self.model = self.solver.model()
+            current = next(key for key, c in options
+                           if z3.is_true(self.model.eval(c, model_completion=True)))
+        hold = z3.Bool(f"order{len(self.fixed)}_{id(self)}", self.ctx)
+        self.solver.add(z3.Implies(hold, z3.Or([c for key, c in options if key == current])))
+        self.fixed.append(hold)
+
+    def _seq(self, roots: list, lo: int, hi: int) -> None:
+        for j, root in enumerate(roots):
+            if j < len(roots) - 1:
+                at = self._val(root)
+                opts = [((s,), root == lo + s - 1) for s in range(1, hi - lo + 2)]
+                self._least(opts, (at - lo + 1,))
+                at = self._val(root)
+            else:
+                at = hi
+            self._node(at, lo)
+            lo = at + 1
+
+    def _node(self, m: int, lo: int) -> None:
+        u = self.u
+        size = m - lo + 1
+        tag = u.tag(m)
+        prods = [p for p in u.feasible(m) if (p.arity == 0) == (size == 1)]
+        keyed = sorted(((u.order_key(p), p) for p in prods), key=lambda kp: kp[0])
+        by_pid = {p.pid: key for key, p in keyed}
+        self._least([(key, tag == p.pid) for key, p in keyed], by_pid[self._val(tag)])
+        p = u.prods[self._val(tag)]
+        if p.kind == "bound":
+            ref = u.ref(m)
+            codes = u.ref_codes(m, p.ns)
+            self._least([(u.ref_key(c), ref == c) for c in codes], u.ref_key(self._val(ref)))
+        if p.arity:
+            kids = [u.ptr(m, p.arity - 1 - j) for j in range(p.arity)]
+            self._seq(kids, lo, m - 1)
 
 
 def _z(f, ctx: z3.Context):

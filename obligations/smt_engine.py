@@ -19,12 +19,12 @@ Which engine ``auto`` takes, per obligation (:func:`choose_engine`):
 
 from __future__ import annotations
 
-from rules.enumerate import count_tuples
+from rules.enumerate import count_tuples, tuple_position
 from rules.errors import EncodingError
-from rules.rewrite import reducts
 from rules.spec import Atom, Bounds, Implies, Spec
 
-from .bounded import InternalError, build_counterexample, recheck
+from .bounded import InternalError, Partial, build_counterexample, recheck
+from .bounded import _decide_tuple as decide_tuple
 from .claims import Obligation
 from .evaluate import FAIL, OK, UNDECIDED, Evaluator
 from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
@@ -104,7 +104,10 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
         assert res.terms is not None
         v.verdict = REFUTED
         v.counterexample = judge.counterexample(res.terms)
-        v.tried = count_tuples(slots, res.size - 1, bounds.names) + 1
+        # its index in the enumeration, as the enumeration engine counts it
+        v.tried = (count_tuples(slots, res.size - 1, bounds.names) + 1
+                   + tuple_position(slots, [res.terms[m.name] for m in ob.quantified],
+                                    bounds.names))
         v.notes.append(f"smt: no counterexample below size {res.size}; "
                        f"{res.queries} solver quer{'y' if res.queries == 1 else 'ies'}")
     elif res.status == "holds":
@@ -136,51 +139,16 @@ class _Judge:
         self.last: tuple | None = None
 
     def __call__(self, terms: dict) -> str:
+        """The case decided as the enumeration engine decides it (for a premise: its
+        generated ``N`` in order, the first failing one), so that both engines report the
+        same counterexample; the model's own ``N`` is not needed."""
         ev = Evaluator(self.spec, self.bounds)
-        f = self.ob.formula
+        ev.case_norm = {}
         env = {m.name: terms[m.name] for m in self.ob.quantified}
-        if isinstance(f, Atom):
-            seen: dict = {}
-            o = ev.decide(f, env, seen)
-            self.last = (ev, env, seen, o, None)
-            return _status(o.status)
-        assert isinstance(f, Implies)
-        nname = f.premise.right.name  # type: ignore[union-attr]
-        m = env[f.premise.left.name]  # type: ignore[union-attr]
-        rel = f.premise.relation
-        assert rel is not None
-        if nname in terms and conclusion_kind(self.ob) in DECIDED_KINDS:
-            n = terms[nname]
-            step = self._step(m, n, rel)
-            if step is None:
-                return "ok"  # not a case at all: the model's N is no reduct of M
-            case = dict(env)
-            case[nname] = n
-            seen = {}
-            o = ev.decide(f.conclusion, case, seen)
-            self.last = (ev, case, seen, o, step)
-            return _status(o.status)
-        undecided = None
-        for value, rule, pos in ev.generated(f.premise, m):
-            case = dict(env)
-            case[nname] = value
-            seen = {}
-            o = ev.decide(f.conclusion, case, seen)
-            if o.status == FAIL:
-                self.last = (ev, case, seen, o, (rule, pos))
-                return "fail"
-            if o.status == UNDECIDED:
-                undecided = True
-        return "undecided" if undecided else "ok"
-
-    def _step(self, m, n, rel):
-        if rel.kind == "->=" and m is n:
-            return ("", ())
-        calc = self.spec.calculi[rel.calculus or self.ob.formula.premise.left.calculus]
-        for s in reducts(calc, m, rel.group):
-            if s.result is n:
-                return (s.rule, s.position)
-        return None
+        o, case, step, seen = decide_tuple(ev, self.ob.formula, env,
+                                           Partial(self.ob.name))
+        self.last = (ev, case, seen, o, step)
+        return _status(o.status)
 
     def counterexample(self, terms: dict):
         assert self.last is not None

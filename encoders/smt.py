@@ -129,6 +129,7 @@ class Encoding:
         self.mode = "candidate" if kind in CANDIDATE else "decide"
         self.premise = formula.premise if isinstance(formula, Implies) else None
         self._roots: dict[int, tuple] = {}
+        self.calls: list[Sym] = []  # the values of the calls :meth:`value` made
         if self.premise is not None:
             rel = self.premise.relation
             self.prem_rules = self.rules(rel.calculus or self.premise.left.calculus, rel.group)
@@ -156,7 +157,19 @@ class Encoding:
         if isinstance(e, EMeta):
             return env[e.name]
         args = [self.value(a, env) for a in e.args]
-        return self.translator(e.translation).apply(e.fn, args[0], args[1:])
+        out = self.translator(e.translation).apply(e.fn, args[0], args[1:])
+        self.calls.append(out)
+        return out
+
+    def faulty(self, atom: Atom, env: dict[str, Sym]):
+        """Where a translation of the atom fails at run time (no equation matches, or a
+        bound name escapes): the rewriting engine stops there with an error, so such a case
+        counts as one the claim does not pass (it is re-judged, and reported as an error)."""
+        self.calls = []
+        self.value(atom.left, env)
+        if atom.right is not None:
+            self.value(atom.right, env)
+        return f_or(self.store.faulty(v) for v in self.calls)
 
     def holds(self, atom: Atom, env: dict[str, Sym]):
         """The atom as a formula (for a candidate relation: what one step decides)."""
@@ -191,13 +204,16 @@ class Encoding:
             return facts, [], None
         env = {m.name: r for m, r in zip(self.quantified, roots, strict=True)}
         if self.premise is None:
-            fails = f_not(self.holds(self.formula, env))
+            fails = f_or([f_not(self.holds(self.formula, env)),
+                          self.faulty(self.formula, env)])
         else:
             mname = self.premise.left.name
             nname = self.premise.right.name  # type: ignore[union-attr]
             n, valid = self.reduct(env[mname], k)
             env[nname] = n
-            fails = f_and([valid, f_not(self.holds(self.formula.conclusion, env))])
+            atom = self.formula.conclusion
+            fails = f_and([valid, f_or([f_not(self.holds(atom, env)),
+                                        self.faulty(atom, env)])])
         self.store.check_budget()
         self._roots[k] = (env,)
         return facts, [*assume, fails], env

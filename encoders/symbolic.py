@@ -80,6 +80,9 @@ class SChoice(Sym):
 
 
 UNDEFINED_CON = "#undefined"
+#: What a translation gives where an equation lets a bound name escape (the rewriting engine
+#: stops there with an error, as where no equation matches, :data:`UNDEFINED_CON`).
+FAULT_CON = "#fault"
 
 
 # ---------------------------------------------------------------- formulas
@@ -155,11 +158,13 @@ class Store:
         self._occ: dict[tuple, Formula] = {}
         self._subst: dict[tuple, Sym] = {}
         self.budget = budget
+        self._faulty: dict[int, Formula] = {}
         self.undefined = self.node(UNDEFINED_CON, ())
+        self.fault = self.node(FAULT_CON, ())
 
     def size(self) -> int:
         return (len(self._table) + len(self._eq) + len(self._mem) + len(self._occ)
-                + len(self._subst))
+                + len(self._subst) + len(self._faulty))
 
     def check_budget(self) -> None:
         if self.size() > self.budget:
@@ -362,6 +367,24 @@ class Store:
             out = f_or(f_and([g, self.occurs(b, name)])
                        for g, b in zip(t.guards, t.branches, strict=True))
         self._occ[key] = out
+        return out
+
+    def faulty(self, t: Sym) -> Formula:
+        """Whether ``t`` holds :attr:`undefined` or :attr:`fault` somewhere: a translation
+        failed at run time on the way to it."""
+        got = self._faulty.get(id(t))
+        if got is not None:
+            return got
+        out: Formula
+        if isinstance(t, SLeaf):
+            out = False
+        elif isinstance(t, SNode):
+            out = t is self.undefined or t is self.fault or f_or(self.faulty(a) for a in t.args)
+        else:
+            assert isinstance(t, SChoice)
+            out = f_or(f_and([g, self.faulty(b)]) for g, b in zip(t.guards, t.branches,
+                                                                  strict=True))
+        self._faulty[id(t)] = out
         return out
 
     def subst(self, t: Sym, mapping: tuple[tuple[str, Sym], ...]) -> Sym:

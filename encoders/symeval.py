@@ -220,6 +220,9 @@ class SymTranslator:
         self.matcher = Matcher(store, self.source)
         self.builder = Builder(store, self.target, f"{tr.name}.")
         self.by_fn = {fn: tr.equations_of(fn) for fn in tr.signatures}
+        # per equation, the pattern's binder names its right-hand side may let escape
+        self.drops = {id(eq): _dropped(eq.pattern, eq.rhs) for eqs in self.by_fn.values()
+                      for eq in eqs}
         self.memo: dict[tuple, Sym] = {}
 
     def apply(self, fn: str, t: Sym, extra: Sequence[Sym] = ()) -> Sym:
@@ -254,6 +257,11 @@ class SymTranslator:
             for p, v in zip(eq.extra, extra, strict=True):
                 b[p.name] = v
             rhs = self.builder.build(eq.rhs, b, self._call)
+            drops = self.drops[id(eq)]
+            if drops:  # where a bound name reaches the result, the translation stops
+                esc = f_or(self.store.occurs(rhs, b[n]) for n in drops  # type: ignore[arg-type]
+                           if isinstance(b.get(n), str))
+                rhs = self.store.choice([esc, f_not(esc)], [self.store.fault, rhs])
             cond = f_and(conds)
             if is_false(cond):
                 continue
@@ -371,6 +379,40 @@ class SymRules:
             out = f_or(parts)
         self._red[key] = out
         return out
+
+
+def _dropped(pattern: Pattern, rhs: Pattern) -> tuple[str, ...]:
+    """The binder names of ``pattern`` over a metavariable that ``rhs`` uses outside
+    any binder for that name (``t(app(lam(x.M), N)) = t(M)`` drops ``x``)."""
+    under: dict[str, set[str]] = {}
+
+    def left(p, above: frozenset[str]) -> None:
+        if isinstance(p, PMeta):
+            under.setdefault(p.name, set()).update(above)
+        elif isinstance(p, PAbs):
+            left(p.body, above | set(p.names))
+        elif isinstance(p, PCon):
+            for a in p.args:
+                left(a, above)
+
+    out: set[str] = set()
+
+    def right(p, above: frozenset[str]) -> None:
+        if isinstance(p, PMeta):
+            out.update(under.get(p.name, set()) - above)
+        elif isinstance(p, PAbs):
+            right(p.body, above | set(p.names))
+        elif isinstance(p, PCon | PCall):
+            for a in p.args:
+                right(a, above)
+        elif isinstance(p, PSubst):
+            right(p.body, above)
+            for _, q in p.pairs:
+                right(q, above)
+
+    left(pattern, frozenset())
+    right(rhs, frozenset())
+    return tuple(sorted(out))
 
 
 def _check_rule(r: Rule) -> None:

@@ -32,7 +32,7 @@ class ModelMismatch(Exception):
 
 @dataclass
 class Outcome:
-    status: str  # 'holds', 'refuted', 'inconclusive'
+    status: str  # 'holds', 'refuted', 'inconclusive', 'error' (a translation failed on terms)
     proved_upto: int = 0  # the largest size shown to have no counterexample
     terms: dict | None = None  # the counterexample (concrete terms) when refuted
     size: int = 0
@@ -44,7 +44,7 @@ class Outcome:
     notes: list[str] = field(default_factory=list)
 
 
-Judge = Callable[[dict], str]  # -> 'fail', 'ok' or 'undecided'
+Judge = Callable[[dict], str]  # -> 'fail', 'ok', 'undecided' or 'error'
 
 
 def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
@@ -98,8 +98,8 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
                                  "smallest size but may not be the first in enumeration order")
             terms = enc.decode(model, env)
             verdict = judge(terms)
-            if verdict == "fail":
-                out.status = "refuted"
+            if verdict in ("fail", "error"):
+                out.status = "refuted" if verdict == "fail" else "error"
                 out.terms = terms
                 out.size = n
                 out.seconds = time.perf_counter() - start

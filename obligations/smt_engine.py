@@ -21,13 +21,15 @@ from __future__ import annotations
 
 from rules.enumerate import count_tuples, tuple_position
 from rules.errors import EncodingError
+from rules.notation import print_abstract
 from rules.spec import Atom, Bounds, Implies, Spec
+from rules.translate import TranslationFailure
 
 from .bounded import InternalError, Partial, build_counterexample, recheck
 from .bounded import _decide_tuple as decide_tuple
 from .claims import Obligation
 from .evaluate import FAIL, OK, UNDECIDED, Evaluator
-from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
+from .verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict, set_run_time_error
 
 DECIDED_KINDS = ("==", "->", "->=", ":")
 
@@ -110,6 +112,15 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
                                     bounds.names))
         v.notes.append(f"smt: no counterexample below size {res.size}; "
                        f"{res.queries} solver quer{'y' if res.queries == 1 else 'ies'}")
+    elif res.status == "error":
+        assert judge.failure is not None and res.terms is not None
+        env, err = judge.failure
+        case = {m.name: print_abstract(spec.calculi[m.calculus], env[m.name])
+                for m in ob.quantified}
+        set_run_time_error(v, err.problems[0].message, case,
+                           sum(env[m.name].size for m in ob.quantified))
+        v.tried = count_tuples(slots, res.size - 1, bounds.names) + 1 + tuple_position(
+            slots, [env[m.name] for m in ob.quantified], bounds.names)
     elif res.status == "holds":
         v.tried = count_tuples(slots, res.proved_upto, bounds.names)
         v.notes.append(f"smt: unsat at every size up to {res.proved_upto} "
@@ -137,6 +148,7 @@ class _Judge:
         self.ob = ob
         self.bounds = bounds
         self.last: tuple | None = None
+        self.failure: tuple[dict, TranslationFailure] | None = None
 
     def __call__(self, terms: dict) -> str:
         """The case decided as the enumeration engine decides it (for a premise: its
@@ -145,8 +157,12 @@ class _Judge:
         ev = Evaluator(self.spec, self.bounds)
         ev.case_norm = {}
         env = {m.name: terms[m.name] for m in self.ob.quantified}
-        o, case, step, seen = decide_tuple(ev, self.ob.formula, env,
-                                           Partial(self.ob.name))
+        try:
+            o, case, step, seen = decide_tuple(ev, self.ob.formula, env,
+                                               Partial(self.ob.name))
+        except TranslationFailure as e:
+            self.failure = (env, e)
+            return "error"
         self.last = (ev, case, seen, o, step)
         return _status(o.status)
 

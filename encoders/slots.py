@@ -265,6 +265,7 @@ class Universe:
         """The constraints of the slots not yet added, up to slot ``upto``."""
         out = []
         while self.added <= upto:
+            self.store.check_budget()
             out.extend(self.slot_constraints(self.added))
             self.added += 1
         return out

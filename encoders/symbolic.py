@@ -20,6 +20,7 @@ which the helpers below fold away.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Iterable, Sequence
 
 import z3
@@ -143,6 +144,10 @@ class Budget(Exception):
     """The encoding grew past its budget of symbolic objects."""
 
 
+class TimeBudget(Budget):
+    """Building the encoding took longer than its time budget (``--timeout``)."""
+
+
 class Store:
     """Interns symbolic terms and memoises the functions over them.
 
@@ -158,6 +163,10 @@ class Store:
         self._occ: dict[tuple, Formula] = {}
         self._subst: dict[tuple, Sym] = {}
         self.budget = budget
+        #: when building must stop (``time.monotonic()``), None for no limit: set by the
+        #: solver loop for each size, so that building is bounded as each query is
+        self.deadline: float | None = None
+        self._ticks = 0
         self._faulty: dict[int, Formula] = {}
         self.undefined = self.node(UNDEFINED_CON, ())
         self.fault = self.node(FAULT_CON, ())
@@ -169,6 +178,15 @@ class Store:
     def check_budget(self) -> None:
         if self.size() > self.budget:
             raise Budget(self.size())
+        if self.deadline is not None and time.monotonic() > self.deadline:
+            raise TimeBudget(self.size())
+
+    def tick(self) -> None:
+        """A cheap check of the time budget, for loops that build much without interning."""
+        self._ticks += 1
+        if not self._ticks & 0x3FF and self.deadline is not None \
+                and time.monotonic() > self.deadline:
+            raise TimeBudget(self.size())
 
     # ------------------------------------------------------------ building
 
@@ -187,7 +205,7 @@ class Store:
         got = self._table.get(key)
         if got is None:
             got = self._table[key] = SNode(con, args, bn)
-            if not len(self._table) & 0xFFFF:  # every 65,536 new nodes: cheap, and in time
+            if not len(self._table) & 0xFFF:  # every 4,096 new nodes: cheap, and in time
                 self.check_budget()
         return got  # type: ignore[return-value]
 
@@ -304,6 +322,7 @@ class Store:
                     and len(a) == len(t.args)]
             out = f_or(f_and(self.member(arg, s, calc) for arg, s in zip(t.args, a, strict=True))
                        for a in alts)
+        self.tick()
         self._mem[key] = out
         return out
 
@@ -346,6 +365,7 @@ class Store:
                     if is_false(parts[-1]):
                         break
                 out = f_and(parts)
+        self.tick()
         self._eq[key] = out
         return out
 
@@ -366,6 +386,7 @@ class Store:
             assert isinstance(t, SChoice)
             out = f_or(f_and([g, self.occurs(b, name)])
                        for g, b in zip(t.guards, t.branches, strict=True))
+        self.tick()
         self._occ[key] = out
         return out
 

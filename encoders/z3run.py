@@ -20,7 +20,7 @@ import z3
 from rules.spec import Bounds, EMeta, Spec
 
 from .smt import Encoding
-from .symbolic import Budget
+from .symbolic import Budget, TimeBudget
 
 #: Candidates a claim may produce before the engine gives up on it.
 CANDIDATE_LIMIT = 200
@@ -51,6 +51,7 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
           judge: Judge, timeout: float | None = None, budget: int = 4_000_000,
           min_size: int = 1) -> Outcome:
     start = time.perf_counter()
+    started = time.monotonic()
     ctx = z3.Context()
     solver = z3.Solver(ctx=ctx)
     if timeout is not None:
@@ -61,8 +62,16 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
     nmetas = len(quantified)
     for k in range(bounds.size):
         n = k + 1
+        # the encoding is built no further once the timeout has passed since the claim
+        # started (a query gets the timeout; building, unbounded, could take any time)
+        enc.store.deadline = None if timeout is None else started + timeout
         try:
             facts, assume, env = enc.query(k)
+        except TimeBudget:
+            out.status = "inconclusive"
+            out.reason = (f"the timeout ({timeout:g} s) ran out while the encoding for size {n} "
+                          f"was built; no counterexample up to size {out.proved_upto}")
+            break
         except (Budget, MemoryError) as e:
             out.status = "inconclusive"
             used = e.args[0] if isinstance(e, Budget) else "memory"
@@ -70,6 +79,8 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
                           f"memo entries, budget {budget}); no counterexample up to size "
                           f"{out.proved_upto}")
             break
+        finally:
+            enc.store.deadline = None
         solver.add(facts)
         if env is None or n < max(min_size, nmetas):
             out.proved_upto = n

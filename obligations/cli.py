@@ -8,6 +8,7 @@ own mistake.
 
 from __future__ import annotations
 
+import math
 import os
 import sys
 import traceback
@@ -36,6 +37,13 @@ def _positive(name: str, least: int):
         return value
 
     return check
+
+
+def _finite_positive(ctx, param, value):
+    # float() takes "inf", "nan" and negative numbers; none is a number of seconds
+    if value is not None and not (math.isfinite(value) and value > 0):
+        raise click.BadParameter(f"must be a finite positive number of seconds, not {value}")
+    return value
 
 
 size_option = click.option("--size", type=int, default=None, callback=_positive("size", 1),
@@ -226,7 +234,9 @@ def _shard_option(ctx, param, value):
 @nodes_option
 @click.option("--engine", type=click.Choice(["enum", "smt", "auto"]), default="enum",
               show_default=True, help="Which engine decides the claims.")
-@click.option("--timeout", type=float, default=None, help="Seconds per solver query (smt).")
+@click.option("--timeout", type=float, default=None, callback=_finite_positive,
+              help="Seconds per solver query (smt); the encoding is built no further once "
+              "they have passed.")
 @click.option("--json", "json_path", metavar="PATH|-", default=None,
               help="Write the JSON report to PATH (- for standard output).")
 @click.option("--junit", "junit_path", metavar="PATH", default=None,

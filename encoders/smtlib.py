@@ -20,6 +20,7 @@ from rules.errors import EncodingError
 from rules.spec import Bounds, Claim, Spec
 
 from .smt import Encoding, encodable
+from .symbolic import Budget
 
 HEADER_KEYS = ("spec", "claim", "obligation", "bounds", "mode")
 
@@ -47,12 +48,14 @@ def obligation_query(spec: Spec, ob, bounds: Bounds, ctx: z3.Context, upto: int 
     return enc, facts, lits, envs
 
 
-def export_obligations(spec: Spec, claim: Claim, bounds: Bounds, out_dir: str | os.PathLike
-                       ) -> list[Path]:
+def export_obligations(spec: Spec, claim: Claim, bounds: Bounds, out_dir: str | os.PathLike,
+                       skipped: list[str] | None = None) -> list[Path]:
     """Write one ``.smt2`` file per encodable obligation of ``claim`` into ``out_dir``.
 
     ``bounds`` are the effective bounds (size and names matter). Raises
     :class:`~rules.errors.EncodingError` when no obligation of the claim can be encoded.
+    An obligation whose encoding grows past its budget is not written; ``skipped`` gets
+    the reason.
     """
     from obligations.claims import plan
 
@@ -74,7 +77,13 @@ def export_obligations(spec: Spec, claim: Claim, bounds: Bounds, out_dir: str | 
     out.mkdir(parents=True, exist_ok=True)
     for ob in todo:
         ctx = z3.Context()
-        enc, facts, lits, _ = obligation_query(spec, ob, bounds, ctx)
+        try:
+            enc, facts, lits, _ = obligation_query(spec, ob, bounds, ctx)
+        except Budget as e:
+            if skipped is not None:
+                skipped.append(f"{ob.name}: the encoding grew past its budget ({e.args[0]} "
+                               "symbolic terms and memo entries); give a smaller --size")
+            continue
         s = z3.Solver(ctx=ctx)
         s.add(facts)
         s.add(z3.Or(lits) if lits else z3.BoolVal(False, ctx))

@@ -108,7 +108,7 @@ def f_and(xs: Iterable) -> Formula:
             out.append(x)
     if not out:
         return True
-    return out[0] if len(out) == 1 else z3.And(out)
+    return out[0] if len(out) == 1 else _connect(z3.Z3_mk_and, out)
 
 
 def f_or(xs: Iterable) -> Formula:
@@ -120,7 +120,16 @@ def f_or(xs: Iterable) -> Formula:
             out.append(x)
     if not out:
         return False
-    return out[0] if len(out) == 1 else z3.Or(out)
+    return out[0] if len(out) == 1 else _connect(z3.Z3_mk_or, out)
+
+
+def _connect(make, xs: list) -> z3.BoolRef:
+    """``And``/``Or`` of formulas known to be Boolean and of one context, made by the C API
+    directly: z3.And and z3.Or check and coerce every argument, which cost most of the time
+    of building an encoding (tests/bench/bench_smt.py)."""
+    ctx = xs[0].ctx
+    arr = (z3.Ast * len(xs))(*[x.as_ast() for x in xs])
+    return z3.BoolRef(make(ctx.ref(), len(xs), arr), ctx)
 
 
 def f_not(x) -> Formula:
@@ -182,11 +191,12 @@ class Store:
             raise TimeBudget(self.size())
 
     def tick(self) -> None:
-        """A cheap check of the time budget, for loops that build much without interning."""
+        """A cheap check of both budgets every 1,024 memo entries, for the functions that
+        fill memo tables without interning new terms (``eq`` between two choice-laden terms
+        can make millions of entries)."""
         self._ticks += 1
-        if not self._ticks & 0x3FF and self.deadline is not None \
-                and time.monotonic() > self.deadline:
-            raise TimeBudget(self.size())
+        if not self._ticks & 0x3FF:
+            self.check_budget()
 
     # ------------------------------------------------------------ building
 

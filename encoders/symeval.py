@@ -274,6 +274,10 @@ class SymTranslator:
         return self.apply(fn, args[0], args[1:])
 
 
+class StepBudget(Exception):
+    """:meth:`SymRules.step` expanded more pairs of terms than its limit."""
+
+
 class SymRules:
     """One calculus's rules (or one group of them) over symbolic terms."""
 
@@ -288,6 +292,11 @@ class SymRules:
         self.builder = Builder(store, calc, f"r.{calc.name}.")
         self._root: dict[tuple, tuple] = {}
         self._red: dict[tuple, object] = {}
+        # pairs (a, b) :meth:`step` has expanded, and how many it may before it gives up
+        # (:class:`StepBudget`): between two choice-laden terms their number grows with the
+        # product of the branches, tenfold a size (tests/bench/bench_smt.py)
+        self.work = 0
+        self.limit: int | None = None
         for r in self.rules:
             _check_rule(r)
 
@@ -353,8 +362,16 @@ class SymRules:
         got = self._red.get(key)
         if got is not None:
             return got
+        self.work += 1
+        self.store.tick()
+        if self.limit is not None and self.work > self.limit:
+            raise StepBudget(self.work)
         s = self.store
-        if isinstance(a, SChoice):
+        if isinstance(a, SChoice) and isinstance(b, SChoice) and _same_guards(a, b):
+            # one decision picks both branches: only the pairs it picks together are cases
+            out = f_or(f_and([g, self.step(x, y, rho)])
+                       for g, x, y in zip(a.guards, a.branches, b.branches, strict=True))
+        elif isinstance(a, SChoice):
             out = f_or(f_and([g, self.step(x, b, rho)]) for g, x in zip(a.guards, a.branches,
                                                                         strict=True))
         elif isinstance(b, SChoice):
@@ -379,6 +396,11 @@ class SymRules:
             out = f_or(parts)
         self._red[key] = out
         return out
+
+
+def _same_guards(a: SChoice, b: SChoice) -> bool:
+    return len(a.guards) == len(b.guards) and all(
+        x.eq(y) for x, y in zip(a.guards, b.guards, strict=True))
 
 
 def _dropped(pattern: Pattern, rhs: Pattern) -> tuple[str, ...]:

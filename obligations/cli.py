@@ -407,8 +407,11 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
         raise UsageError(f"no claim {claim_name} in {spec.file}",
                          hint="claims: " + (", ".join(c.name for c in spec.claims) or "none"))
     b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
-    for path in export_obligations(spec, claim, b, out_dir):
+    skipped: list[str] = []
+    for path in export_obligations(spec, claim, b, out_dir, skipped):
         click.echo(str(path))
+    for why in skipped:
+        click.echo(f"not written: {why}", err=True)
 
 
 # ---------------------------------------------------------------- merge and explain

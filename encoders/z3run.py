@@ -131,6 +131,10 @@ def solve(spec: Spec, formula, quantified: tuple[EMeta, ...], bounds: Bounds,
                 out.seconds = time.perf_counter() - start
                 return out
         out.proved_upto = n
+    if enc.step_dropped:
+        out.notes.append(f"the one-step test grew past its limit at size(s) "
+                         f"{', '.join(map(str, sorted(set(enc.step_dropped))))}; there the "
+                         "solver proposed every case whose sides differ")
     if out.status == "holds" and out.undecided:
         out.status = "inconclusive"
         out.reason = (f"{out.undecided} candidate(s) from the solver stayed undecided when "

@@ -76,6 +76,10 @@ def _summary(v: Verdict) -> str:
     secs = f"{v.seconds:.2f}s"
     if v.scope == "all" and v.verdict == HOLDS:
         return f"proved for all terms ({v.reason})  {secs}"
+    if v.verdict == HOLDS and v.engine == "smt":
+        # the solver covers every term at once: the count is the space, not cases tried
+        return (f"for all {v.tried} terms up to size {v.bounds.size}, names {v.bounds.names} "
+                f"(solver)  [{v.engine}]  {secs}")
     if v.verdict == HOLDS:
         return f"{v.tried} case(s) up to {_bounds_text(v)}  [{v.engine}]  {secs}"
     if v.verdict == REFUTED and v.counterexample is None:

@@ -122,11 +122,15 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
         v.tried = count_tuples(slots, res.size - 1, bounds.names) + 1 + tuple_position(
             slots, [env[m.name] for m in ob.quantified], bounds.names)
     elif res.status == "holds":
+        # JSON `tried` is the number of terms (tuples) the unsat answers cover, the number
+        # the enumeration would try; the note says they were covered, not tried one by one
         v.tried = count_tuples(slots, res.proved_upto, bounds.names)
         v.notes.append(f"smt: unsat at every size up to {res.proved_upto} "
                        f"({res.queries} solver quer{'y' if res.queries == 1 else 'ies'}"
                        + (f", {res.candidates} candidate(s) re-checked" if res.candidates
                           else "") + ")")
+        v.notes.append(f"smt: the solver's unsat answers cover all {v.tried} terms up to "
+                       f"size {res.proved_upto}, not tried one by one")
     else:
         v.verdict = INCONCLUSIVE
         v.reason = res.reason
@@ -137,6 +141,7 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
     if res.candidates:
         v.notes.append(f"smt: {res.candidates} candidate(s) re-checked by rewriting, "
                        f"{res.undecided} undecided")
+    v.notes.extend(f"smt: {n}" for n in res.notes)
     return v
 
 

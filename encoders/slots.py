@@ -69,6 +69,7 @@ class Universe:
         self.states = g.reachable
         self.sid = {q: i for i, q in enumerate(self.states)}
         self.prods: list[Prod] = []
+        self._combo_index: dict[str, dict[tuple, int]] = {}
         self._build_prods()
         self.A = max((p.arity for p in self.prods), default=0)
         self.J = max((len(b) for p in self.prods for b in p.bsorts), default=0)
@@ -111,10 +112,40 @@ class Universe:
                 per_pos.append([tuple(v) for v in groups.values()])
             import itertools
 
+            self._combo_index[con] = {c: i for i, c in enumerate(itertools.product(*per_pos))}
             for combo in itertools.product(*per_pos):
                 q = g.delta(con, tuple(self.states[grp[0]] for grp in combo))
                 if q:
                     self._add(Prod(0, self.sid[q], "node", con, tuple(combo), shape.binder_sorts))
+
+    def order_key(self, p: Prod) -> tuple:
+        """Where the terms made by ``p`` come in the enumeration's order, among the
+        productions a slot of one size may take (calcscout.rules.core.enumerate: at size 1 per names
+        sort its bound names then its free names, then the constants; above, the
+        constructors in declaration order, each with its argument states' groups in
+        product order).  A bound name's place among the others is its binder's
+        (:meth:`ref_key`)."""
+        names = list(self.calc.names_sorts)
+        cons = list(self.calc.shapes)
+        if p.kind == "bound":
+            return (names.index(p.ns), 0, 0)
+        if p.kind == "free":
+            return (names.index(p.ns), 1, p.index)
+        if p.kind == "const":
+            return (len(names), 2, cons.index(p.con))
+        return (cons.index(p.con), self._combo_index[p.con][p.groups])
+
+    def ref_key(self, code: int) -> tuple[int, int]:
+        """The enumeration's order of bound names, innermost binder first: the nearest
+        enclosing slot first (postorder puts nearer ancestors at lower slots), and within
+        one argument the last of its binders first."""
+        r, rest = divmod(code, max(self.A, 1) * max(self.J, 1))
+        return (r, -(rest % max(self.J, 1)))
+
+    def ref_codes(self, m: int, ns: str) -> list[int]:
+        """The codes a bound name of ``ns`` at slot ``m`` may point at."""
+        return sorted({self.code(r, a, j) for r in range(m + 1, self.N)
+                       for _p, a, j, bns in self.binding if bns == ns})
 
     def _add(self, p: Prod) -> None:
         self.prods.append(Prod(len(self.prods), p.state, p.kind, p.con, p.groups, p.bsorts,
@@ -233,6 +264,7 @@ class Universe:
         """The constraints of the slots not yet added, up to slot ``upto``."""
         out = []
         while self.added <= upto:
+            self.store.check_budget()
             out.extend(self.slot_constraints(self.added))
             self.added += 1
         return out
@@ -370,3 +402,10 @@ class Universe:
             for v in (self.tag(m), self.ref(m)):
                 out.append(v == model.eval(v, model_completion=True))
         return out
+
+    def root_vars(self, k: int, count: int) -> list:
+        """The slots of the roots of the ``count`` terms laid out in slots ``0..k``, left to
+        right (as :meth:`tuple_roots` places them); the last one is slot ``k``."""
+        if count == 1:
+            return [z3.IntVal(k, self.ctx)]
+        return [self.var("v", k, count - 1 - j) for j in range(count)]

@@ -18,6 +18,7 @@ from pathlib import Path
 import z3
 
 from calcscout.encoders.smt import Encoding, encodable
+from calcscout.encoders.symbolic import Budget
 from calcscout.rules.core.errors import EncodingError
 from calcscout.rules.core.spec import Bounds, Claim, Spec
 
@@ -48,13 +49,16 @@ def obligation_query(spec: Spec, ob, bounds: Bounds, ctx: z3.Context, upto: int 
 
 
 def export_obligations(spec: Spec, claim: Claim, obligations: Sequence, bounds: Bounds,
-                       out_dir: str | os.PathLike) -> list[Path]:
+                       out_dir: str | os.PathLike, skipped: list[str] | None = None
+                       ) -> list[Path]:
     """Write one ``.smt2`` file per encodable obligation of ``claim`` into ``out_dir``.
 
     ``obligations`` are the claim's obligations as the caller planned them (the
     claim's own, then its parts; ``normalize(T)`` parts are not encoded).
     ``bounds`` are the effective bounds (size and names matter). Raises
     :class:`~calcscout.rules.core.errors.EncodingError` when no obligation of the claim can be encoded.
+    An obligation whose encoding grows past its budget is not written; ``skipped`` gets
+    the reason.
     """
     obs = [o for o in obligations if o.normalizes is None]
     out = Path(out_dir)
@@ -73,7 +77,13 @@ def export_obligations(spec: Spec, claim: Claim, obligations: Sequence, bounds: 
     out.mkdir(parents=True, exist_ok=True)
     for ob in todo:
         ctx = z3.Context()
-        enc, facts, lits, _ = obligation_query(spec, ob, bounds, ctx)
+        try:
+            enc, facts, lits, _ = obligation_query(spec, ob, bounds, ctx)
+        except Budget as e:
+            if skipped is not None:
+                skipped.append(f"{ob.name}: the encoding grew past its budget ({e.args[0]} "
+                               "symbolic terms and memo entries); give a smaller --size")
+            continue
         s = z3.Solver(ctx=ctx)
         s.add(facts)
         s.add(z3.Or(lits) if lits else z3.BoolVal(False, ctx))

@@ -20,6 +20,7 @@ which the helpers below fold away.
 
 from __future__ import annotations
 
+import time
 from collections.abc import Iterable, Sequence
 
 import z3
@@ -80,6 +81,9 @@ class SChoice(Sym):
 
 
 UNDEFINED_CON = "#undefined"
+#: What a translation gives where an equation lets a bound name escape (the rewriting engine
+#: stops there with an error, as where no equation matches, :data:`UNDEFINED_CON`).
+FAULT_CON = "#fault"
 
 
 # ---------------------------------------------------------------- formulas
@@ -104,7 +108,7 @@ def f_and(xs: Iterable) -> Formula:
             out.append(x)
     if not out:
         return True
-    return out[0] if len(out) == 1 else z3.And(out)
+    return out[0] if len(out) == 1 else _connect(z3.Z3_mk_and, out)
 
 
 def f_or(xs: Iterable) -> Formula:
@@ -116,7 +120,16 @@ def f_or(xs: Iterable) -> Formula:
             out.append(x)
     if not out:
         return False
-    return out[0] if len(out) == 1 else z3.Or(out)
+    return out[0] if len(out) == 1 else _connect(z3.Z3_mk_or, out)
+
+
+def _connect(make, xs: list) -> z3.BoolRef:
+    """``And``/``Or`` of formulas known to be Boolean and of one context, made by the C API
+    directly: z3.And and z3.Or check and coerce every argument, which cost most of the time
+    of building an encoding (tests/bench/bench_smt.py)."""
+    ctx = xs[0].ctx
+    arr = (z3.Ast * len(xs))(*[x.as_ast() for x in xs])
+    return z3.BoolRef(make(ctx.ref(), len(xs), arr), ctx)
 
 
 def f_not(x) -> Formula:
@@ -140,6 +153,10 @@ class Budget(Exception):
     """The encoding grew past its budget of symbolic objects."""
 
 
+class TimeBudget(Budget):
+    """Building the encoding took longer than its time budget (``--timeout``)."""
+
+
 class Store:
     """Interns symbolic terms and memoises the functions over them.
 
@@ -155,15 +172,31 @@ class Store:
         self._occ: dict[tuple, Formula] = {}
         self._subst: dict[tuple, Sym] = {}
         self.budget = budget
+        #: when building must stop (``time.monotonic()``), None for no limit: set by the
+        #: solver loop for each size, so that building is bounded as each query is
+        self.deadline: float | None = None
+        self._ticks = 0
+        self._faulty: dict[int, Formula] = {}
         self.undefined = self.node(UNDEFINED_CON, ())
+        self.fault = self.node(FAULT_CON, ())
 
     def size(self) -> int:
         return (len(self._table) + len(self._eq) + len(self._mem) + len(self._occ)
-                + len(self._subst))
+                + len(self._subst) + len(self._faulty))
 
     def check_budget(self) -> None:
         if self.size() > self.budget:
             raise Budget(self.size())
+        if self.deadline is not None and time.monotonic() > self.deadline:
+            raise TimeBudget(self.size())
+
+    def tick(self) -> None:
+        """A cheap check of both budgets every 1,024 memo entries, for the functions that
+        fill memo tables without interning new terms (``eq`` between two choice-laden terms
+        can make millions of entries)."""
+        self._ticks += 1
+        if not self._ticks & 0x3FF:
+            self.check_budget()
 
     # ------------------------------------------------------------ building
 
@@ -182,7 +215,7 @@ class Store:
         got = self._table.get(key)
         if got is None:
             got = self._table[key] = SNode(con, args, bn)
-            if not len(self._table) & 0xFFFF:  # every 65,536 new nodes: cheap, and in time
+            if not len(self._table) & 0xFFF:  # every 4,096 new nodes: cheap, and in time
                 self.check_budget()
         return got  # type: ignore[return-value]
 
@@ -299,6 +332,7 @@ class Store:
                     and len(a) == len(t.args)]
             out = f_or(f_and(self.member(arg, s, calc) for arg, s in zip(t.args, a, strict=True))
                        for a in alts)
+        self.tick()
         self._mem[key] = out
         return out
 
@@ -341,6 +375,7 @@ class Store:
                     if is_false(parts[-1]):
                         break
                 out = f_and(parts)
+        self.tick()
         self._eq[key] = out
         return out
 
@@ -361,7 +396,26 @@ class Store:
             assert isinstance(t, SChoice)
             out = f_or(f_and([g, self.occurs(b, name)])
                        for g, b in zip(t.guards, t.branches, strict=True))
+        self.tick()
         self._occ[key] = out
+        return out
+
+    def faulty(self, t: Sym) -> Formula:
+        """Whether ``t`` holds :attr:`undefined` or :attr:`fault` somewhere: a translation
+        failed at run time on the way to it."""
+        got = self._faulty.get(id(t))
+        if got is not None:
+            return got
+        out: Formula
+        if isinstance(t, SLeaf):
+            out = False
+        elif isinstance(t, SNode):
+            out = t is self.undefined or t is self.fault or f_or(self.faulty(a) for a in t.args)
+        else:
+            assert isinstance(t, SChoice)
+            out = f_or(f_and([g, self.faulty(b)]) for g, b in zip(t.guards, t.branches,
+                                                                  strict=True))
+        self._faulty[id(t)] = out
         return out
 
     def subst(self, t: Sym, mapping: tuple[tuple[str, Sym], ...]) -> Sym:

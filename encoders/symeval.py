@@ -13,7 +13,18 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 
-from calcscout.encoders.symbolic import SChoice, SLeaf, SNode, Store, Sym, f_and, f_not, f_or, is_false
+from calcscout.encoders.symbolic import (
+    SChoice,
+    SLeaf,
+    SNode,
+    Store,
+    Sym,
+    _extend,
+    f_and,
+    f_not,
+    f_or,
+    is_false,
+)
 from calcscout.rules.core.errors import EncodingError
 from calcscout.rules.core.spec import (
     Calculus,
@@ -219,6 +230,9 @@ class SymTranslator:
         self.matcher = Matcher(store, self.source)
         self.builder = Builder(store, self.target, f"{tr.name}.")
         self.by_fn = {fn: tr.equations_of(fn) for fn in tr.signatures}
+        # per equation, the pattern's binder names its right-hand side may let escape
+        self.drops = {id(eq): _dropped(eq.pattern, eq.rhs) for eqs in self.by_fn.values()
+                      for eq in eqs}
         self.memo: dict[tuple, Sym] = {}
 
     def apply(self, fn: str, t: Sym, extra: Sequence[Sym] = ()) -> Sym:
@@ -253,6 +267,11 @@ class SymTranslator:
             for p, v in zip(eq.extra, extra, strict=True):
                 b[p.name] = v
             rhs = self.builder.build(eq.rhs, b, self._call)
+            drops = self.drops[id(eq)]
+            if drops:  # where a bound name reaches the result, the translation stops
+                esc = f_or(self.store.occurs(rhs, b[n]) for n in drops  # type: ignore[arg-type]
+                           if isinstance(b.get(n), str))
+                rhs = self.store.choice([esc, f_not(esc)], [self.store.fault, rhs])
             cond = f_and(conds)
             if is_false(cond):
                 continue
@@ -263,6 +282,10 @@ class SymTranslator:
 
     def _call(self, fn: str, args: Sequence[Sym]) -> Sym:
         return self.apply(fn, args[0], args[1:])
+
+
+class StepBudget(Exception):
+    """:meth:`SymRules.step` expanded more pairs of terms than its limit."""
 
 
 class SymRules:
@@ -279,6 +302,11 @@ class SymRules:
         self.builder = Builder(store, calc, f"r.{calc.name}.")
         self._root: dict[tuple, tuple] = {}
         self._red: dict[tuple, object] = {}
+        # pairs (a, b) :meth:`step` has expanded, and how many it may before it gives up
+        # (:class:`StepBudget`): between two choice-laden terms their number grows with the
+        # product of the branches, tenfold a size (tests/bench/bench_smt.py)
+        self.work = 0
+        self.limit: int | None = None
         for r in self.rules:
             _check_rule(r)
 
@@ -334,40 +362,89 @@ class SymRules:
         raise EncodingError("a condition on a context or substitution: the SMT engine does not "
                             "encode it", getattr(p, "pos", None))
 
-    def step(self, a: Sym, b: Sym):
-        """``a -> b`` (one step anywhere) as a formula."""
-        key = (id(a), id(b))
+    def step(self, a: Sym, b: Sym, rho: tuple = ()):
+        """``a -> b`` (one step anywhere) as a formula; ``rho`` pairs the binder names of
+        ``a`` with the differently named binders of ``b`` that enclose this point, as in
+        :meth:`~calcscout.encoders.symbolic.Store.eq`.  (Renaming ``b``'s binders to ``a``'s by
+        substitution would capture where the two terms nest the same names in different
+        orders, as a translation that swaps binders makes them.)"""
+        key = (id(a), id(b), rho)
         got = self._red.get(key)
         if got is not None:
             return got
+        self.work += 1
+        self.store.tick()
+        if self.limit is not None and self.work > self.limit:
+            raise StepBudget(self.work)
         s = self.store
-        if isinstance(a, SChoice):
-            out = f_or(f_and([g, self.step(x, b)]) for g, x in zip(a.guards, a.branches,
-                                                                   strict=True))
+        if isinstance(a, SChoice) and isinstance(b, SChoice) and _same_guards(a, b):
+            # one decision picks both branches: only the pairs it picks together are cases
+            out = f_or(f_and([g, self.step(x, y, rho)])
+                       for g, x, y in zip(a.guards, a.branches, b.branches, strict=True))
+        elif isinstance(a, SChoice):
+            out = f_or(f_and([g, self.step(x, b, rho)]) for g, x in zip(a.guards, a.branches,
+                                                                        strict=True))
         elif isinstance(b, SChoice):
-            out = f_or(f_and([g, self.step(a, y)]) for g, y in zip(b.guards, b.branches,
-                                                                   strict=True))
+            out = f_or(f_and([g, self.step(a, y, rho)]) for g, y in zip(b.guards, b.branches,
+                                                                        strict=True))
         else:
             parts = []
             for r in self.rules:
                 v, res = self.root_step(r, a)
                 if not is_false(v):
-                    parts.append(f_and([v, s.eq(res, b)]))
+                    parts.append(f_and([v, s.eq(res, b, rho)]))
             if (isinstance(a, SNode) and isinstance(b, SNode) and a.con == b.con
                     and len(a.args) == len(b.args)
                     and all(len(x) == len(y) for x, y in zip(a.bnames, b.bnames, strict=True))):
-                args_b = [y if nx == ny else s.subst(y, tuple(
-                    (q, s.leaf(p)) for p, q in zip(nx, ny, strict=True) if p != q))
-                    for y, nx, ny in zip(b.args, a.bnames, b.bnames, strict=True)]
-                same = [s.eq(x, y) for x, y in zip(a.args, args_b, strict=True)]
-                for i, (x, y) in enumerate(zip(a.args, args_b, strict=True)):
+                inner = [_extend(rho, nx, ny) for nx, ny in zip(a.bnames, b.bnames, strict=True)]
+                same = [s.eq(x, y, r) for x, y, r in zip(a.args, b.args, inner, strict=True)]
+                for i, (x, y) in enumerate(zip(a.args, b.args, strict=True)):
                     others = [e for j, e in enumerate(same) if j != i]
                     if any(is_false(e) for e in others):
                         continue
-                    parts.append(f_and([*others, self.step(x, y)]))
+                    parts.append(f_and([*others, self.step(x, y, inner[i])]))
             out = f_or(parts)
         self._red[key] = out
         return out
+
+
+def _same_guards(a: SChoice, b: SChoice) -> bool:
+    return len(a.guards) == len(b.guards) and all(
+        x.eq(y) for x, y in zip(a.guards, b.guards, strict=True))
+
+
+def _dropped(pattern: Pattern, rhs: Pattern) -> tuple[str, ...]:
+    """The binder names of ``pattern`` over a metavariable that ``rhs`` uses outside
+    any binder for that name (``t(app(lam(x.M), N)) = t(M)`` drops ``x``)."""
+    under: dict[str, set[str]] = {}
+
+    def left(p, above: frozenset[str]) -> None:
+        if isinstance(p, PMeta):
+            under.setdefault(p.name, set()).update(above)
+        elif isinstance(p, PAbs):
+            left(p.body, above | set(p.names))
+        elif isinstance(p, PCon):
+            for a in p.args:
+                left(a, above)
+
+    out: set[str] = set()
+
+    def right(p, above: frozenset[str]) -> None:
+        if isinstance(p, PMeta):
+            out.update(under.get(p.name, set()) - above)
+        elif isinstance(p, PAbs):
+            right(p.body, above | set(p.names))
+        elif isinstance(p, PCon | PCall):
+            for a in p.args:
+                right(a, above)
+        elif isinstance(p, PSubst):
+            right(p.body, above)
+            for _, q in p.pairs:
+                right(q, above)
+
+    left(pattern, frozenset())
+    right(rhs, frozenset())
+    return tuple(sorted(out))
 
 
 def _check_rule(r: Rule) -> None:

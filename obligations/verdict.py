@@ -144,6 +144,18 @@ class Verdict:
         )
 
 
+def set_run_time_error(v: Verdict, message: str, case: dict[str, str], size: int) -> None:
+    """Make ``v`` the ``error`` verdict of a claim on whose case ``case`` (metavariable ->
+    abstract form, of total size ``size``) a translation failed at run time: ``reason`` is
+    the failure with the case, and the case is kept as the counterexample, whose evidence
+    repeats the failure."""
+    shown = ", ".join(f"{k} = {t}" for k, t in case.items())
+    v.verdict = ERROR
+    v.reason = f"{message} (on the case {shown})"
+    v.counterexample = Counterexample(size, dict(case), message)
+    v.cut_by = None
+
+
 def worst(verdicts: list[str]) -> str:
     """A shorthand's verdict: the worst of its parts (refuted over inconclusive over holds)."""
     if not verdicts:

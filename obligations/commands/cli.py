@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import errno
 import gc
+import math
 import os
 import sys
 import traceback
@@ -47,6 +48,13 @@ def _positive(name: str, least: int):
         return value
 
     return check
+
+
+def _finite_positive(ctx, param, value):
+    # float() takes "inf", "nan" and negative numbers; none is a number of seconds
+    if value is not None and not (math.isfinite(value) and value > 0):
+        raise click.BadParameter(f"must be a finite positive number of seconds, not {value}")
+    return value
 
 
 size_option = click.option("--size", type=int, default=None, callback=_positive("size", 1),
@@ -219,7 +227,9 @@ def _shard_option(ctx, param, value):
               help="Which engine decides the claims: enum (every term up to the bounds), smt "
                    "(the solver), proof (induction, for all terms), auto (a proof first, then "
                    "the faster bounded engine).")
-@click.option("--timeout", type=float, default=None, help="Seconds per solver query (smt).")
+@click.option("--timeout", type=float, default=None, callback=_finite_positive,
+              help="Seconds per solver query (smt); the encoding is built no further once "
+              "they have passed.")
 @click.option("--json", "json_path", metavar="PATH|-", default=None,
               help="Write the JSON report to PATH (- for standard output).")
 @click.option("--junit", "junit_path", metavar="PATH", default=None,
@@ -561,8 +571,11 @@ def export(file: str, claim_name: str, size, steps, names, out_dir: str) -> None
         return
     _check_export_folder(out_dir, spec, claim)
     b = spec.claim_bounds(claim, Bounds(size=size, steps=steps, names=names))
-    for path in export_obligations(spec, claim, plan(spec, claim).obligations, b, out_dir):
+    skipped: list[str] = []
+    for path in export_obligations(spec, claim, plan(spec, claim).obligations, b, out_dir, skipped):
         click.echo(str(path))
+    for why in skipped:
+        click.echo(f"not written: {why}", err=True)
 
 
 def _check_export_folder(out_dir: str, spec: Spec, claim) -> None:

@@ -20,13 +20,16 @@ Which engine ``auto`` takes, per obligation (:func:`choose_engine`):
 from __future__ import annotations
 
 from calcscout.obligations.claims import Obligation
-from calcscout.obligations.engines.enumeration import InternalError, build_counterexample, recheck
+from calcscout.obligations.engines.enumeration import InternalError, Partial, build_counterexample, recheck
+from calcscout.obligations.engines.enumeration import _CaseError as CaseError
+from calcscout.obligations.engines.enumeration import _decide_tuple as decide_tuple
 from calcscout.obligations.engines.evaluate import FAIL, OK, UNDECIDED, Evaluator
-from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict
-from calcscout.rules.core.enumerate import count_tuples
+from calcscout.obligations.verdict import HOLDS, INCONCLUSIVE, REFUTED, Verdict, set_run_time_error
+from calcscout.rules.core.enumerate import count_tuples, tuple_position
 from calcscout.rules.core.errors import EncodingError
 from calcscout.rules.core.spec import Atom, Bounds, Implies, Spec
-from calcscout.rules.rewriting.rewrite import reducts
+from calcscout.rules.notation.notation import print_abstract
+from calcscout.rules.rewriting.translate import TranslationFailure
 
 DECIDED_KINDS = ("==", "->", "->=", ":")
 
@@ -103,15 +106,31 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
         assert res.terms is not None
         v.verdict = REFUTED
         v.counterexample = judge.counterexample(res.terms)
-        v.tried = count_tuples(slots, res.size - 1, bounds.names) + 1
+        # its index in the enumeration, as the enumeration engine counts it
+        v.tried = (count_tuples(slots, res.size - 1, bounds.names) + 1
+                   + tuple_position(slots, [res.terms[m.name] for m in ob.quantified],
+                                    bounds.names))
         v.notes.append(f"smt: no counterexample below size {res.size}; "
                        f"{res.queries} solver quer{'y' if res.queries == 1 else 'ies'}")
+    elif res.status == "error":
+        assert judge.failure is not None and res.terms is not None
+        env, err = judge.failure
+        case = {m.name: print_abstract(spec.calculi[m.calculus], env[m.name])
+                for m in ob.quantified}
+        set_run_time_error(v, err.problems[0].message, case,
+                           sum(env[m.name].size for m in ob.quantified))
+        v.tried = count_tuples(slots, res.size - 1, bounds.names) + 1 + tuple_position(
+            slots, [env[m.name] for m in ob.quantified], bounds.names)
     elif res.status == "holds":
+        # JSON `tried` is the number of terms (tuples) the unsat answers cover, the number
+        # the enumeration would try; the note says they were covered, not tried one by one
         v.tried = count_tuples(slots, res.proved_upto, bounds.names)
         v.notes.append(f"smt: unsat at every size up to {res.proved_upto} "
                        f"({res.queries} solver quer{'y' if res.queries == 1 else 'ies'}"
                        + (f", {res.candidates} candidate(s) re-checked" if res.candidates
                           else "") + ")")
+        v.notes.append(f"smt: the solver's unsat answers cover all {v.tried} terms up to "
+                       f"size {res.proved_upto}, not tried one by one")
     else:
         v.verdict = INCONCLUSIVE
         v.reason = res.reason
@@ -122,6 +141,7 @@ def run_smt(spec: Spec, ob: Obligation, bounds: Bounds, timeout: float | None = 
     if res.candidates:
         v.notes.append(f"smt: {res.candidates} candidate(s) re-checked by rewriting, "
                        f"{res.undecided} undecided")
+    v.notes.extend(f"smt: {n}" for n in res.notes)
     return v
 
 
@@ -139,53 +159,28 @@ class _Judge:
         self.ob = ob
         self.bounds = bounds
         self.last: tuple | None = None
+        self.failure: tuple[dict, TranslationFailure] | None = None
 
     def __call__(self, terms: dict) -> str:
+        """The case decided as the enumeration engine decides it (for a premise: its
+        generated ``N`` in order, the first failing one), so that both engines report the
+        same counterexample; the model's own ``N`` is not needed."""
         ev = Evaluator(self.spec, self.bounds)
-        f = self.ob.formula
+        ev.case_norm = {}
         env = {m.name: terms[m.name] for m in self.ob.quantified}
-        if isinstance(f, Atom):
-            seen: dict = {}
-            o = ev.decide(f, env, seen)
-            self.last = (ev, env, seen, o, None)
-            return _status(o.status)
-        assert isinstance(f, Implies)
-        nname = f.premise.right.name  # type: ignore[union-attr]
-        m = env[f.premise.left.name]  # type: ignore[union-attr]
-        rel = f.premise.relation
-        assert rel is not None
-        if nname in terms and conclusion_kind(self.ob) in DECIDED_KINDS:
-            n = terms[nname]
-            step = self._step(m, n, rel)
-            if step is None:
-                return "ok"  # not a case at all: the model's N is no reduct of M
-            case = dict(env)
-            case[nname] = n
-            seen = {}
-            o = ev.decide(f.conclusion, case, seen)
-            self.last = (ev, case, seen, o, step)
-            return _status(o.status)
-        undecided = None
-        for value, rule, pos in ev.generated(f.premise, m):
-            case = dict(env)
-            case[nname] = value
-            seen = {}
-            o = ev.decide(f.conclusion, case, seen)
-            if o.status == FAIL:
-                self.last = (ev, case, seen, o, (rule, pos))
-                return "fail"
-            if o.status == UNDECIDED:
-                undecided = True
-        return "undecided" if undecided else "ok"
-
-    def _step(self, m, n, rel):
-        if rel.kind == "->=" and m is n:
-            return ("", ())
-        calc = self.spec.calculi[rel.calculus or self.ob.formula.premise.left.calculus]
-        for s in reducts(calc, m, rel.group):
-            if s.result is n:
-                return (s.rule, s.position)
-        return None
+        try:
+            o, case, step, seen = decide_tuple(ev, self.ob.formula, env,
+                                               Partial(self.ob.name))
+        except TranslationFailure as e:
+            self.failure = (env, e)
+            return "error"
+        except CaseError as e:  # the enumeration engine's wrapper of a run-time failure
+            if not isinstance(e.error, TranslationFailure):
+                raise e.error from None
+            self.failure = (env, e.error)
+            return "error"
+        self.last = (ev, case, seen, o, step)
+        return _status(o.status)
 
     def counterexample(self, terms: dict):
         assert self.last is not None

@@ -86,6 +86,10 @@ def _summary(v: Verdict) -> str:
         return f"proved for all terms ({v.reason})  [{v.engine}]  {secs}"
     if v.engine == "proof" and v.verdict == HOLDS:
         return f"{v.reason}  [proof]  {secs}"
+    if v.verdict == HOLDS and v.engine == "smt" and not v.warning:
+        # the solver covers every term at once: the count is the space, not cases tried
+        return (f"for all {v.tried} terms up to size {v.bounds.size}, names {v.bounds.names} "
+                f"(solver)  [{v.engine}]  {secs}")
     if v.verdict == HOLDS and v.vacuous and not (v.warning and v.tried == 0):
         return (f"vacuously: {v.reason or 'the premise generated no case'} ({v.tried} value(s) "
                 f"up to {_bounds_text(v)})  [{v.engine}]  {secs}")

@@ -568,3 +568,84 @@ def _wrap(space: _Space, con: str, binders: tuple[int, ...], specs: tuple, cspec
             yield node(con, args, binders), u
 
     return make
+
+
+# ---------------------------------------------------------------- positions
+
+
+def tuple_position(
+    slots: Sequence[tuple[Calculus, str]], terms: Sequence[Term], max_names: int
+) -> int:
+    """The position (from 0) of ``terms`` among the tuples of its total size, in the order of
+    :func:`enumerate_tuples`; computed from counts, without building the tuples before it.
+
+    So a tuple's index in the whole stream is ``count_tuples(slots, n - 1, max_names)`` plus
+    this, where ``n`` is its total size.  ``terms`` must be one of the stream's tuples (its
+    free names canonical); otherwise :class:`ValueError`.
+    """
+    if len(terms) != len(slots):
+        raise ValueError("one term per slot")
+    space = _Space([c for c, _ in slots], max_names)
+    specs = tuple(space.slot(c, s).spec() for c, s in slots)
+    n = sum(t.size for t in terms)
+    before, _ = _seq_before(space, specs, n, space.zero, tuple(terms))
+    return sum(before.values())
+
+
+def _seq_before(space: _Space, specs: tuple, n: int, used: Used,
+                terms: tuple[Term, ...]) -> tuple[Counts, Used]:
+    """The used_after distribution of the sequences :meth:`_Space.prod` yields before
+    ``terms``, and the used_after of ``terms`` itself."""
+    enum, cls, env, envc = specs[0]
+    first = terms[0]
+    if len(specs) == 1:
+        if first.size != n:
+            raise ValueError("the sizes do not add up")
+        return _term_before(enum, cls, n, env, envc, used, first)
+    crest = _count_specs(specs[1:])
+    out: Counts = {}
+
+    def add(dist: Counts) -> None:
+        for u, c in dist.items():
+            for u2, c2 in space.seq_counts(crest, n - s, u).items():
+                out[u2] = out.get(u2, 0) + c * c2
+
+    for s in range(1, first.size):
+        add(enum.counts(cls, s, envc, used))
+    s = first.size
+    head, u1 = _term_before(enum, cls, s, env, envc, used, first)
+    add(head)
+    rest, u_end = _seq_before(space, specs[1:], n - s, u1, terms[1:])
+    for u, c in rest.items():
+        out[u] = out.get(u, 0) + c
+    return out, u_end
+
+
+def _term_before(enum: _Enum, cls: tuple[int, ...], n: int, env: tuple[int, ...],
+                 envc: tuple[int, ...], used: Used, t: Term) -> tuple[Counts, Used]:
+    """As :func:`_seq_before`, for the terms :meth:`_Enum.gen` yields before ``t``."""
+    out: Counts = {}
+    if n == 1:
+        for item, u in enum._gen(cls, 1, env, envc, used):
+            if item is t:
+                return out, u
+            out[u] = out.get(u, 0) + 1
+        raise ValueError(f"{t!r} is not among the terms enumerated here")
+    names = tuple(enum.ns_names[i] for i in env)
+    for con, binders, children in enum.klass(cls).nodes:
+        if len(children) > n - 1:
+            continue
+        specs, cspecs = enum._children(children, env, envc)
+        if (getattr(t, "con", None) == con and t.binders == binders  # type: ignore[attr-defined]
+                and all(enum.sid.get(enum.g.state(a, tuple(enum.ns_names[b] for b in bind)
+                                                   + names), -1) in group
+                        for a, (group, bind) in zip(t.args, children,  # type: ignore[attr-defined]
+                                                    strict=True))):
+            inner, u = _seq_before(enum.space, specs, n - 1, used,
+                                   t.args)  # type: ignore[attr-defined]
+            for k, c in inner.items():
+                out[k] = out.get(k, 0) + c
+            return out, u
+        for u, c in enum.space.seq_counts(cspecs, n - 1, used).items():
+            out[u] = out.get(u, 0) + c
+    raise ValueError(f"{t!r} is not among the terms enumerated here")

@@ -155,11 +155,13 @@ def test_report_carries_the_proof(capsys, tmp_path) -> None:
     assert {c["name"]: c for c in data["claims"]}["sim"]["lemmas"] == ["id_subst"]
 
 
-def test_open_cases_are_listed_with_their_goal(capsys) -> None:
+def test_open_cases_are_listed_with_their_goal(capsys, tmp_path) -> None:
+    junit = tmp_path / "j.xml"
     code, out, _ = run(capsys, "check", str(DEMO / "resugar-v1.calc"), "exact", "--engine",
-                       "proof")
+                       "proof", "--junit", str(junit))
     assert code == 3
     assert "case M = if(M3, M4, M5)" in out and "goal:  if(M3, M5, M4)" in out
+    assert "goal:  if(M3, M5, M4)" in junit.read_text()  # JUnit carries the open cases too
 
 
 def test_proof_engine_refuses_confluence_claims(capsys) -> None:

@@ -354,6 +354,7 @@ def junit_report(spec_file: str, verdicts: Sequence[Verdict]) -> str:
         elif v.verdict == INCONCLUSIVE:
             lines.append(f"    <testcase {attrs}>")
             lines.append(f"      <skipped message={quoteattr(v.reason or 'inconclusive')}/>")
+            lines.append(f"      <system-out>{body}</system-out>")  # open cases, undecided ones
             lines.append("    </testcase>")
         else:
             lines.append(f"    <testcase {attrs}>")

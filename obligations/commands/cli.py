@@ -92,7 +92,8 @@ def cli() -> None:
 
     FILE is a .calc rule file. Exit status: 0 every claim holds, 1 some claim is
     refuted, 3 none refuted but some inconclusive, 2 the input or the command
-    line is wrong.
+    line is wrong or a claim ended in error, 130/143 stopped by SIGINT/SIGTERM,
+    70 an internal error (or a worker process that died).
     """
 
 

@@ -111,44 +111,39 @@ def prove(calc: Calculus, group: str | None = None, timeout: float | None = None
         proof.reason = "no rules: every term is a normal form"
         return proof
     strict = [(r.lhs, r.rhs) for r in system.rules]
-    for method in DIRECT_METHODS:
-        if methods is not None and method not in methods:
-            continue
-        found = find(Problem(system.signature, strict=strict), method, per_query)
-        proof.seconds[method] = found.seconds
-        if found.status == "unknown":
-            proof.notes.append(f"termination proof: the solver gave up on {method} "
-                               f"({found.reason})")
-        if found.witness is not None:
-            w = _with_rules(found.witness, system)
-            _must_check(system, w)
-            proof.witness = w
-            proof.reason = describe(w, system)
-            return proof
+
+    def accept(w: dict) -> Proof:
+        w = _with_rules(w, system)
+        _must_check(system, w)
+        proof.witness = w
+        proof.reason = describe(w, system)
+        return proof
+
+    def orders(names: tuple[str, ...]) -> Proof | None:
+        for method in names:
+            if methods is not None and method not in methods:
+                continue
+            found = find(Problem(system.signature, strict=strict), method, per_query)
+            proof.seconds[method] = found.seconds
+            if found.status == "unknown":
+                proof.notes.append(f"termination proof: the solver gave up on {method} "
+                                   f"({found.reason})")
+            if found.witness is not None:
+                return accept(found.witness)
+        return None
+
+    done = orders(DIRECT_METHODS)
+    if done is not None:
+        return done
     if methods is None or "dp" in methods:
         start = time.perf_counter()
         w = _dependency_pairs(system, per_query, proof.notes)
         proof.seconds["dp"] = time.perf_counter() - start
         if w is not None:
-            w = _with_rules(w, system)
-            _must_check(system, w)
-            proof.witness = w
-            proof.reason = describe(w, system)
-            return proof
-    for method in LAST_METHODS:
-        if methods is not None and method not in methods:
-            continue
-        found = find(Problem(system.signature, strict=strict), method, per_query)
-        proof.seconds[method] = found.seconds
-        if found.status == "unknown":
-            proof.notes.append(f"termination proof: the solver gave up on {method} "
-                               f"({found.reason})")
-        if found.witness is not None:
-            w = _with_rules(found.witness, system)
-            _must_check(system, w)
-            proof.witness = w
-            proof.reason = describe(w, system)
-            return proof
+            return accept(w)
+    done = orders(LAST_METHODS)
+    if done is not None:
+        return done
     tried = [m for m in (*DIRECT_METHODS, "dp", *LAST_METHODS) if methods is None or m in methods]
     proof.reason = f"no termination proof found ({', '.join(tried)})"
     return proof

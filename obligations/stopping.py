@@ -63,8 +63,10 @@ class StopSignals:
         return self.request.cause if self.request else None
 
     def __enter__(self) -> StopSignals:
+        global _active
         if threading.current_thread() is not threading.main_thread():
             return self  # signals reach only the main thread: nothing to install
+        _active = self
         for signum in (signal.SIGINT, signal.SIGTERM, signal.SIGALRM):
             self._old[signum] = signal.signal(signum, self._handle)
         if self.time_limit is not None:
@@ -72,6 +74,9 @@ class StopSignals:
         return self
 
     def __exit__(self, *exc) -> None:
+        global _active
+        if _active is self:
+            _active = None
         if self.time_limit is not None and self._old:
             signal.setitimer(signal.ITIMER_REAL, 0)
         for signum, old in self._old.items():
@@ -102,5 +107,20 @@ class StopSignals:
                                       f"the run was stopped by {name} before this claim "
                                       "was decided")
         if self._armed:
-            self._armed = False
+            # Raised where the main thread happens to be.  If that is a garbage-collector
+            # callback or a finaliser, Python swallows it: the request stays recorded and
+            # :func:`poll`, called by the engines' loops, raises it again.
             raise self.request
+
+    def poll(self) -> None:
+        if self.request is not None and self._armed:
+            raise self.request
+
+
+_active: StopSignals | None = None
+
+
+def poll() -> None:
+    """Raise a stop request recorded while the work is armed (cheap: call it often)."""
+    if _active is not None:
+        _active.poll()

@@ -25,6 +25,7 @@ from typing import Any
 
 from calcscout.obligations.claims import Obligation
 from calcscout.obligations.engines.evaluate import FAIL, OK, UNDECIDED, Evaluator, Outcome, search
+from calcscout.obligations.stopping import poll as poll_stop
 from calcscout.obligations.verdict import ERROR, HOLDS, INCONCLUSIVE, REFUTED, Counterexample, Verdict
 from calcscout.rules.core.enumerate import enumerate_tuples
 from calcscout.rules.core.errors import CalcError
@@ -132,6 +133,8 @@ def _run_cases(spec: Spec, ob: Obligation, bounds: Bounds, ev: Evaluator, f: Ato
     for k, values in enumerate(stream):
         if k % 512 == 511:
             gc.collect(0)  # the young generation only: cheap, and frees any short cycles
+        if k % 64 == 63:
+            poll_stop()  # a stop request the signal handler could not raise here
         index = i0 + k * n
         env = {m.name: v for m, v in zip(ob.quantified, values, strict=True)}
         part.tried += 1

@@ -21,7 +21,6 @@ True
 
 from __future__ import annotations
 
-import gc
 import itertools
 import sys
 from collections.abc import Iterable, Mapping, Sequence
@@ -81,10 +80,9 @@ class Node(Term):
 # nothing else holds.  Generational, because most terms die young (a stream
 # of enumerated terms, the intermediate results of a case): every
 # ``_YOUNG`` new entries only the entries made since the last sweep are
-# visited; the whole table when it has doubled since the last full sweep and
-# at every full garbage collection.  So the work per term stays constant, a
-# stream keeps at most ``_YOUNG`` dead terms, and in all at most as many dead
-# terms as live ones are kept.
+# visited; the whole table when it has doubled since the last full sweep.
+# So the work per term stays constant, a stream keeps at most ``_YOUNG`` dead
+# terms, and in all at most as many dead terms as live ones are kept.
 _table: dict[tuple, Term] = {}
 _YOUNG = 1 << 11
 _FULL_FLOOR = 1 << 16
@@ -148,12 +146,9 @@ def _calibrate() -> int:
 _DEAD = _calibrate()
 
 
-def _after_gc(phase: str, info: dict) -> None:
-    if phase == "stop" and info.get("generation") == 2:
-        sweep()
-
-
-gc.callbacks.append(_after_gc)
+# No sweep from a garbage-collector callback: a signal handler that raises (Ctrl-C,
+# SIGTERM stopping a run) while such a callback runs has its exception swallowed by
+# the interpreter, and the stop would be lost.  The table is swept as it grows.
 
 
 def name(text: str) -> Name:
